@@ -1,0 +1,69 @@
+#pragma once
+// The output folder of a decode, retry or merge:
+//   image.bin          every sector at its logical address (best guess when unverified,
+//                      a fill pattern when missing or when asked to)
+//   sectors.jsonl      the confidence log: one JSON object per sector attempt, appended
+//   damage-map.json    the final status and confidence of every sector
+//   damage-map.svg     the same as a picture
+//   run.json           provenance: versions, parameters, SHA-256 of inputs and outputs
+// Every file is written under a temporary name and renamed when complete, so an
+// interrupted run never leaves a half-written file under a final name. A verified
+// sector is never replaced by an unverified one.
+
+#include <cstdint>
+#include <filesystem>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "results/damage_map.hpp"
+#include "results/sector_result.hpp"
+
+namespace salvor::results {
+
+struct FillPolicy {
+  bool fill_unverified = false;  // write the fill pattern instead of a failed sector's best guess
+  int fill_byte = -1;            // -1: the text marker below; 0..255: that byte
+};
+
+// The fill of a sector with no trustworthy data: by default the ASCII text
+// "<salvor missing lba=N> " repeated (easy to grep for in an image), or one byte value.
+std::vector<uint8_t> fill_pattern(uint64_t lba, int sector_bytes, const FillPolicy& policy,
+                                  const char* what);
+
+class DecodeFolder {
+ public:
+  // A new, empty folder state for an image of this geometry (nothing written yet).
+  DecodeFolder(std::filesystem::path dir, Geometry geometry);
+
+  // Reads an existing output folder (image.bin, sectors.jsonl, damage-map.json, run.json).
+  // Throws salvor::Error(input) naming the file on anything missing or inconsistent.
+  static DecodeFolder open(const std::filesystem::path& dir);
+
+  // Records one attempt (appended to the log) and keeps it as the sector's final
+  // result when it is better (better_than). Returns true if it became the final result.
+  bool record(SectorAttempt attempt);
+
+  const Geometry& geometry() const { return geometry_; }
+  const std::vector<SectorAttempt>& final_attempts() const { return final_; }
+  const SectorAttempt& final_attempt(uint64_t lba) const { return final_.at(lba); }
+  size_t new_attempts() const { return new_log_.size(); }
+  nlohmann::json& run_info() { return run_; }  // the command fills it (versions, parameters, inputs)
+  const std::filesystem::path& dir() const { return dir_; }
+
+  // Writes all five files atomically (each temp + rename; run.json last, with the SHA-256
+  // of the other four). Returns the SHA-256 of image.bin.
+  std::string write(const FillPolicy& fill);
+
+ private:
+  std::filesystem::path dir_;
+  Geometry geometry_;
+  std::vector<SectorAttempt> final_;     // indexed by LBA
+  std::vector<std::string> old_log_;     // lines already in sectors.jsonl
+  std::vector<std::string> new_log_;     // lines to append
+  std::vector<std::vector<uint8_t>> old_image_;  // sector data from an existing image.bin (open())
+  nlohmann::json run_ = nlohmann::json::object();
+};
+
+}  // namespace salvor::results
