@@ -1,6 +1,7 @@
 #include "cli_common.hpp"
 
 #include <cstdio>
+#include <cstdlib>
 #include <iostream>
 #include <unistd.h>
 
@@ -39,6 +40,36 @@ int guarded(const std::string& command, const std::function<int()>& body) {
     std::cerr << "salvor " << command << ": internal error: " << e.what() << "\n";
     return exit_internal;
   }
+}
+
+std::vector<std::string> plugin_search_dirs() {
+  std::vector<std::string> dirs;
+  const char* env = std::getenv("SALVOR_PLUGIN_PATH");
+  if (env) {
+    std::string v = env;
+    size_t start = 0;
+    while (start <= v.size()) {
+      size_t colon = v.find(':', start);
+      std::string part = v.substr(start, colon == std::string::npos ? std::string::npos : colon - start);
+      if (!part.empty()) dirs.push_back(part);
+      if (colon == std::string::npos) break;
+      start = colon + 1;
+    }
+  }
+  dirs.push_back(SALVOR_PLUGIN_BUILD_DIR);
+  dirs.push_back(SALVOR_PLUGIN_INSTALL_DIR);
+  return dirs;
+}
+
+void draw_progress(const std::string& label, size_t done, size_t total) {
+  const int width = 30;
+  int filled = total ? static_cast<int>(width * done / total) : width;
+  std::string bar(static_cast<size_t>(filled), '=');
+  if (filled < width) bar += '>';
+  bar.resize(static_cast<size_t>(width), ' ');
+  std::fprintf(stderr, "\r%s [%s] %zu/%zu", label.c_str(), bar.c_str(), done, total);
+  if (done >= total) std::fprintf(stderr, "\n");
+  std::fflush(stderr);
 }
 
 bool stdout_is_terminal() { return ::isatty(STDOUT_FILENO) == 1; }

@@ -27,6 +27,13 @@ bool parse_command_line(const std::string& command, const std::string& synopsis,
 // Runs `body`, turning exceptions into a message on stderr and an exit code.
 int guarded(const std::string& command, const std::function<int()>& body);
 
+// The plugin search path every command uses: $SALVOR_PLUGIN_PATH, the build folder's
+// plugin directory, the install directory (never the current directory).
+std::vector<std::string> plugin_search_dirs();
+
+// A one-line progress bar on stderr ("label [=====>    ] 12/40"), redrawn in place.
+void draw_progress(const std::string& label, size_t done, size_t total);
+
 bool stdout_is_terminal();
 bool stderr_is_terminal();
 

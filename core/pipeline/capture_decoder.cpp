@@ -1,0 +1,833 @@
+#include "pipeline/capture_decoder.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <deque>
+#include <map>
+#include <numeric>
+#include <cstdio>
+#include <cstdlib>
+
+#include "common/error.hpp"
+#include "condition/conditioner.hpp"
+#include "detect/detector.hpp"
+#include "equalize/equalizer.hpp"
+#include "equalize/mmse_target.hpp"
+#include "equalize/targets.hpp"
+#include "format/rll89.hpp"
+#include "format/track_codec.hpp"
+#include "frame/sync_search.hpp"
+#include "resample/resampler.hpp"
+#include "results/confidence.hpp"
+#include "timing/timing_loop.hpp"
+
+namespace salvor::pipeline {
+
+namespace {
+
+using results::SectorAttempt;
+using results::SectorStatus;
+
+// Below this |LLR| a bit counts as weak (P(error) ~ 1/(1+e^2) = 12 %): the byte holding
+// it is a candidate erasure and counts towards the confidence's weak share.
+constexpr float kWeakLlr = 2.0f;
+
+// T-spaced response of the PLL's samples to one NRZ level under a Lorentzian channel:
+// a level change between bits k-1 and k peaks at sample k, so level a_n contributes
+// g(m-n) = [h(m-n) - h(m-n-1)] / 2 to sample m (Bergmans 1996: bit response as half the
+// dibit). Returned causal, shifted by `lead` samples, and scaled to unit rms for i.i.d.
+// levels, which is what the conditioner's AGC delivers.
+std::vector<double> model_bit_response(double pw50_bits, int lead, int span) {
+  auto h = [&](double x) { return 1.0 / (1.0 + (2.0 * x / pw50_bits) * (2.0 * x / pw50_bits)); };
+  std::vector<double> g(static_cast<size_t>(lead + span + 1));
+  double energy = 0;
+  for (size_t i = 0; i < g.size(); ++i) {
+    double j = static_cast<double>(i) - lead;
+    g[i] = 0.5 * (h(j) - h(j - 1));
+    energy += g[i] * g[i];
+  }
+  for (double& v : g) v /= std::sqrt(energy);
+  return g;
+}
+
+// Wiener taps for `target` from the channel model; the model stream lags the real one by
+// `lead` samples, so a real delay d is a model delay d + lead.
+std::vector<double> initial_taps(const std::vector<double>& target, double pw50_bits, size_t taps,
+                                 size_t delay, double snr_db) {
+  const int lead = 6;
+  std::vector<double> g = model_bit_response(pw50_bits, lead, 12);
+  equalize::MmseDesignConfig cfg;
+  cfg.equalizer_taps = taps;
+  cfg.delay = delay + lead;
+  cfg.target_length = std::max<size_t>(target.size(), 2);
+  double noise_var = std::pow(10.0, -snr_db / 10.0);
+  // The model needs the delay inside the window: widen the design and keep the taps.
+  if (cfg.delay >= cfg.equalizer_taps) {
+    // Design a longer filter and take the part that maps to the real delay.
+    equalize::MmseDesignConfig wide = cfg;
+    wide.equalizer_taps = taps + lead;
+    auto stats = equalize::channel_statistics(g, noise_var, wide);
+    auto sol = equalize::solve_wiener(stats, target, wide);
+    return std::vector<double>(sol.taps.begin(), sol.taps.begin() + static_cast<long>(taps));
+  }
+  auto stats = equalize::channel_statistics(g, noise_var, cfg);
+  return equalize::solve_wiener(stats, target, cfg).taps;
+}
+
+std::vector<int8_t> levels_from_nrzi(std::span<const uint8_t> bits, int8_t start) {
+  std::vector<int8_t> x(bits.size());
+  int8_t level = start;
+  for (size_t i = 0; i < bits.size(); ++i) {
+    if (bits[i]) level = static_cast<int8_t>(-level);
+    x[i] = level;
+  }
+  return x;
+}
+
+double convolve_at(const std::vector<double>& f, std::span<const int8_t> x, size_t k) {
+  double s = 0;
+  for (size_t m = 0; m < f.size() && m <= k; ++m) s += f[m] * x[k - m];
+  return s;
+}
+
+// One bit sample as the framer keeps it.
+struct RingEntry {
+  float value = 0;        // PLL output
+  float coarse_y = 0;     // coarse equalizer output
+  uint8_t coarse_bit = 0; // coarse detector decision (NRZI)
+  uint8_t flag = 0;       // conditioning flags (erasure hint)
+  double position = 0;    // capture position (input sample index)
+  uint8_t state = 0;      // PLL state (debug)
+};
+
+// A sector whose header did not verify: kept for placement at the end of the capture.
+struct Deferred {
+  SectorAttempt attempt;
+  std::vector<uint8_t> coded;         // coded bytes from the detector
+  std::vector<uint8_t> erasures;      // 8/9 invalid words and conditioning flags
+  std::vector<float> byte_reliability;
+};
+
+}  // namespace
+
+nlohmann::json CaptureSummary::to_json() const {
+  return {{"path", path},
+          {"samples", samples},
+          {"sample_rate_hz", sample_rate_hz},
+          {"bit_rate_hz", bit_rate_hz},
+          {"bit_rate_source", bit_rate_source},
+          {"cylinder", cylinder},
+          {"head", head},
+          {"revolution", revolution},
+          {"bits", bits},
+          {"sync_marks", sync_marks},
+          {"lock_losses", lock_losses},
+          {"cycle_slips", cycle_slips},
+          {"rate_offset_ppm", rate_offset_ppm},
+          {"clipped_fraction", clipped_fraction},
+          {"equalizer_taps", equalizer_taps},
+          {"target", target},
+          {"target_name", target_name}};
+}
+
+CaptureDecoder::CaptureDecoder(const format::TrackFormat& fmt, const detect::PluginHost& host,
+                               const DecodeSettings& settings)
+    : fmt_(fmt), host_(host), settings_(settings) {
+  if (!host_.find(settings_.detector))
+    throw_usage("--detector", "no detector plugin named '" + settings_.detector + "' (see salvor plugins)");
+  if (!host_.find(settings_.coarse_detector))
+    throw_usage("coarse detector", "no detector plugin named '" + settings_.coarse_detector + "'");
+  if (settings_.samples_per_bit < 2.0 || settings_.samples_per_bit > 8.0)
+    throw_usage("samples_per_bit", "must be within 2..8");
+}
+
+namespace {
+
+// Everything that happens after the PLL, for one capture.
+class TrackFramer {
+ public:
+  TrackFramer(const format::TrackFormat& fmt, const detect::PluginHost& host, const DecodeSettings& s,
+              const JobCapture& cap, const std::string& capture_name)
+      : fmt_(fmt), host_(host), s_(s), capture_name_(capture_name) {
+    cylinder_ = cap.cylinder;
+    head_ = cap.head;
+    revolution_ = cap.revolution.value_or(0);
+    layout_ = format::layout_track(fmt);
+
+    // Known channel bits from the preamble start to the end of the sync mark.
+    format::SectorHeader h = format::make_sector_header(fmt, 0, 0, 0);
+    std::vector<uint8_t> zeros(static_cast<size_t>(fmt.user_bytes), 0);
+    std::vector<uint8_t> all = format::encode_sector_bits(fmt, h, zeros);
+    known_len_ = static_cast<size_t>(fmt.preamble_bits) + fmt.sync_mark.size();
+    known_bits_.assign(all.begin(), all.begin() + static_cast<long>(known_len_));
+    header_bits_ = static_cast<size_t>(fmt.header_bytes) * 9;
+    data_bits_ = static_cast<size_t>(fmt.coded_bytes) * 9;
+    margin_ = 48;
+    window_len_ = margin_ + known_len_ + header_bits_ + data_bits_ + static_cast<size_t>(fmt.postamble_bits) + margin_;
+    ring_.resize(window_len_ * 2 + 8192);
+
+    // Coarse path: fixed Wiener equalizer towards EPR4 and the coarse detector.
+    coarse_target_ = equalize::lookup_target("EPR4").taps;
+    equalize::EqualizerConfig ec;
+    ec.taps = s.equalizer_taps;
+    ec.delay = ec.taps / 2;
+    ec.target = coarse_target_;
+    ec.target_name = "EPR4";
+    ec.initial_taps = initial_taps(coarse_target_, s.pw50_bits, ec.taps, ec.delay, s.design_snr_db);
+    ec.freeze_after_training = true;
+    coarse_eq_ = std::make_unique<equalize::Equalizer>(ec);
+    detect::DetectorSetup cs;
+    cs.target = coarse_target_;
+    coarse_det_ = std::make_unique<detect::Detector>(host.create(s.coarse_detector, cs));
+
+    int tol = s.sync_tolerance >= 0 ? s.sync_tolerance : fmt.sync_tolerance;
+    sync_ = std::make_unique<frame::SyncSearch>(frame::SyncSearchConfig{fmt.sync_mark, tol});
+
+    // Fine path: the detector's target.
+    const detect::DetectorInfo* info = host.find(s.detector);
+    std::string tname = s.target.empty() ? info->target : s.target;
+    fine_spec_ = equalize::lookup_target(tname, s.gpr_length);
+    if (fine_spec_.kind == equalize::TargetKind::none) {
+      fine_target_.clear();  // the detector wants unequalized samples
+    } else if (fine_spec_.kind == equalize::TargetKind::fixed) {
+      fine_target_ = fine_spec_.taps;
+      make_fine(fine_target_, initial_taps(fine_target_, s.pw50_bits, s.equalizer_taps, s.equalizer_taps / 2,
+                                           s.design_snr_db));
+    }
+    // generalized: designed from the first sector's training data (see design_gpr).
+  }
+
+  // Feeds bit samples from the PLL.
+  void push(std::span<const timing::BitSample> bits, std::span<const uint8_t> flags) {
+    // In blocks much smaller than the ring, so nothing is overwritten before the coarse
+    // path and the sector decoder have used it.
+    const size_t block = 4096;
+    for (size_t off = 0; off < bits.size(); off += block) {
+      size_t n = std::min(block, bits.size() - off);
+      push_block(bits.subspan(off, n), flags.subspan(off, n));
+    }
+  }
+
+  void push_block(std::span<const timing::BitSample> bits, std::span<const uint8_t> flags) {
+    for (size_t i = 0; i < bits.size(); ++i) {
+      RingEntry& e = ring_[count_ % ring_.size()];
+      e = RingEntry{};
+      e.value = bits[i].value;
+      e.position = bits[i].position;
+      e.flag = flags[i];
+      e.state = static_cast<uint8_t>(bits[i].state);
+      ++count_;
+    }
+    run_coarse(bits.size());
+    decode_ready(false);
+  }
+
+  void finish() {
+    // Drain the coarse path, then decode every sector whose window we have.
+    std::vector<float> out(s_.equalizer_taps + 8);
+    size_t n = coarse_eq_->flush(out);
+    feed_coarse_detector(std::span<const float>(out.data(), n), true);
+    sync_->flush(hits_pending_);
+    decode_ready(true);
+    place_deferred();
+  }
+
+  std::vector<SectorAttempt> take_results() { return std::move(results_); }
+  uint64_t bits() const { return count_; }
+  uint64_t sync_marks() const { return sync_marks_; }
+  std::vector<double> fine_taps() const { return fine_eq_ ? fine_eq_->taps() : std::vector<double>{}; }
+  const std::vector<double>& fine_target() const { return fine_target_; }
+  std::string fine_target_name() const { return fine_spec_.name; }
+
+ private:
+  const RingEntry& at(uint64_t i) const { return ring_[i % ring_.size()]; }
+  RingEntry& at(uint64_t i) { return ring_[i % ring_.size()]; }
+
+  void make_fine(const std::vector<double>& target, std::vector<double> taps) {
+    equalize::EqualizerConfig ec;
+    ec.taps = s_.equalizer_taps;
+    ec.delay = ec.taps / 2;
+    ec.target = target;
+    ec.target_name = fine_spec_.name;
+    ec.initial_taps = std::move(taps);
+    ec.normalized = true;
+    ec.step_size = s_.equalizer_step;
+    fine_eq_ = std::make_unique<equalize::Equalizer>(ec);
+    detect::DetectorSetup ds;
+    ds.target = target;
+    ds.params = s_.detector_params;
+    fine_det_ = std::make_unique<detect::Detector>(host_.create(s_.detector, ds));
+  }
+
+  void run_coarse(size_t n_new) {
+    std::vector<float> in(n_new), out(n_new);
+    std::vector<uint8_t> er(n_new);
+    for (size_t i = 0; i < n_new; ++i) {
+      const RingEntry& e = at(count_ - n_new + i);
+      in[i] = e.value;
+      er[i] = e.flag != 0;
+    }
+    Progress p = coarse_eq_->process(in, out, er);
+    feed_coarse_detector(std::span<const float>(out.data(), p.produced), false);
+  }
+
+  void feed_coarse_detector(std::span<const float> y, bool last) {
+    // Equalizer output j lines up with bit sample j.
+    for (size_t i = 0; i < y.size(); ++i) at(coarse_y_count_ + i).coarse_y = y[i];
+    std::vector<uint8_t> er(y.size());
+    for (size_t i = 0; i < y.size(); ++i) er[i] = at(coarse_y_count_ + i).flag != 0;
+    coarse_y_count_ += y.size();
+    std::vector<uint8_t> bits(coarse_det_->capacity_for(y.size()));
+    std::vector<float> llr(bits.size());
+    size_t nb = coarse_det_->process(y, er, bits, llr);
+    store_coarse_bits(std::span<const uint8_t>(bits.data(), nb));
+    if (last) {
+      std::vector<uint8_t> b2(coarse_det_->max_latency() + 8);
+      std::vector<float> l2(b2.size());
+      size_t m = coarse_det_->flush(b2, l2);
+      store_coarse_bits(std::span<const uint8_t>(b2.data(), m));
+    }
+  }
+
+  void store_coarse_bits(std::span<const uint8_t> b) {
+    static FILE* dump = std::getenv("SALVOR_DEBUG_DUMP") ? std::fopen(std::getenv("SALVOR_DEBUG_DUMP"), "w") : nullptr;
+    for (size_t i = 0; i < b.size(); ++i) {
+      if (dump) std::fprintf(dump, "%d %.4f %.4f %.2f %d\n", b[i], at(coarse_bit_count_ + i).value, at(coarse_bit_count_ + i).coarse_y, at(coarse_bit_count_ + i).position, at(coarse_bit_count_ + i).state);
+    }
+    for (size_t i = 0; i < b.size(); ++i) at(coarse_bit_count_ + i).coarse_bit = b[i];
+    coarse_bit_count_ += b.size();
+    sync_->process(b, hits_pending_);
+  }
+
+  // Decodes every pending sync hit whose whole window has arrived.
+  void decode_ready(bool at_end) {
+    while (!hits_pending_.empty()) {
+      const frame::SyncHit h = hits_pending_.front();
+      // Window: [sync_end - known_len - margin, sync_end + header + data + postamble + margin)
+      const uint64_t end = h.end_bit;
+      if (end < known_len_ + margin_) {  // too close to the start to hold the preamble
+        hits_pending_.erase(hits_pending_.begin());
+        continue;
+      }
+      const uint64_t w0 = end - known_len_ - margin_;
+      const uint64_t w1 = w0 + window_len_;
+      const uint64_t avail = std::min(coarse_bit_count_, count_);
+      if (w1 > avail && !at_end) return;  // wait for more
+      if (count_ > ring_.size() && w0 < count_ - ring_.size()) {  // fell out of the ring
+        hits_pending_.erase(hits_pending_.begin());
+        continue;
+      }
+      hits_pending_.erase(hits_pending_.begin());
+      if (std::getenv("SALVOR_DEBUG_FRAMER")) std::fprintf(stderr, "hit end=%llu d=%d pos=%.1f\n", (unsigned long long)end, h.distance, at(end-1).position);
+      // Two hits inside one sector: the later one is a false alarm in the data.
+      if (last_sector_end_ && end < *last_sector_end_) continue;
+      ++sync_marks_;
+      uint64_t w1c = std::min<uint64_t>(w1, avail);
+      if (w1c <= end + header_bits_) continue;  // capture ends right after the sync mark
+      decode_window(w0, w1c, end, h.distance);
+      last_sector_end_ = end + header_bits_ + data_bits_;
+    }
+  }
+
+  void design_gpr(std::span<const float> x, std::span<const int8_t> levels, std::span<const uint8_t> er) {
+    equalize::MmseDesignConfig cfg;
+    cfg.equalizer_taps = s_.equalizer_taps;
+    cfg.delay = s_.equalizer_taps / 2;
+    cfg.target_length = fine_spec_.length;
+    cfg.diagonal_loading = 1e-4;
+    equalize::MmseStatistics st(cfg);
+    st.accumulate(x, levels, er);
+    auto d = equalize::solve_monic_gpr(st.stats(), cfg);
+    fine_target_ = d.target;
+    make_fine(fine_target_, d.equalizer);
+  }
+
+  void decode_window(uint64_t w0, uint64_t w1, uint64_t sync_end, int sync_distance) {
+    const size_t L = static_cast<size_t>(w1 - w0);
+    const size_t k0 = margin_;                 // preamble start within the window
+    const size_t ks = sync_end - w0;           // first header bit within the window
+    std::vector<float> x(L), cy(L);
+    std::vector<uint8_t> cb(L), er(L);
+    for (size_t i = 0; i < L; ++i) {
+      const RingEntry& e = at(w0 + i);
+      x[i] = e.value;
+      cy[i] = e.coarse_y;
+      cb[i] = e.coarse_bit;
+      er[i] = e.flag != 0;
+    }
+    // Training levels: known bits where the format fixes them, coarse decisions elsewhere.
+    std::vector<uint8_t> tb = cb;
+    for (size_t i = 0; i < known_len_ && k0 + i < L; ++i) tb[k0 + i] = known_bits_[i];
+    std::vector<int8_t> lv = levels_from_nrzi(tb, 1);
+    // Polarity: the coarse EPR4 output must correlate positively with EPR4 of the levels.
+    double corr = 0;
+    for (size_t i = k0; i < std::min(L, k0 + known_len_); ++i) corr += cy[i] * convolve_at(coarse_target_, lv, i);
+    const int level_before = corr < 0 ? -1 : 1;
+    if (corr < 0)
+      for (auto& v : lv) v = static_cast<int8_t>(-v);
+
+    SectorAttempt a;
+    a.revolutions = {revolution_};
+    a.capture = capture_name_;
+    a.capture_position = at(sync_end - 1).position;
+    a.detector = s_.detector;
+    a.attempt = "decode";
+    a.rs_capacity = fmt_.rs.parity_symbols;
+
+    std::vector<float> y(L);
+    if (fine_spec_.kind == equalize::TargetKind::generalized && !fine_eq_) design_gpr(x, lv, er);
+    if (fine_eq_) {
+      // LMS over the window on the training levels, then equalize with the trained taps.
+      std::vector<float> tmp(L + s_.equalizer_taps + 8);
+      for (int ep = 0; ep < std::max(1, s_.training_epochs); ++ep) {
+        fine_eq_->restart_span();
+        fine_eq_->train(x, lv, std::span<float>(tmp.data(), L), er);
+        fine_eq_->flush(std::span<float>(tmp.data() + L, s_.equalizer_taps + 8));
+      }
+      fine_eq_->restart_span();
+      Progress p = fine_eq_->process(x, std::span<float>(tmp.data(), L), er);
+      size_t f = fine_eq_->flush(std::span<float>(tmp.data() + p.produced, s_.equalizer_taps + 8));
+      if (p.produced + f < L) throw_internal("equalizer produced fewer outputs than inputs");
+      std::copy(tmp.begin(), tmp.begin() + static_cast<long>(L), y.begin());
+    } else {
+      y = x;  // unequalized (peak detection)
+      if (!fine_det_) {
+        detect::DetectorSetup ds;
+        ds.params = s_.detector_params;
+        fine_det_ = std::make_unique<detect::Detector>(host_.create(s_.detector, ds));
+      }
+    }
+    // Fine detection.
+    fine_det_->reset();
+    if (fine_det_->can_train()) fine_det_->train(y, tb, level_before);
+    std::vector<uint8_t> bits(fine_det_->capacity_for(L) + fine_det_->max_latency());
+    std::vector<float> llr(bits.size());
+    size_t nb = fine_det_->process(y, er, bits, llr);
+    nb += fine_det_->flush(std::span<uint8_t>(bits.data() + nb, bits.size() - nb),
+                           std::span<float>(llr.data() + nb, llr.size() - nb));
+    if (nb < L) {  // a detector that returns fewer bits: treat the rest as unknown
+      for (size_t i = nb; i < L; ++i) {
+        bits[i] = 0;
+        llr[i] = 0;
+      }
+    }
+
+    // Sector statistics: MSE of the equalizer output against the target applied to the
+    // final decisions, and a target SNR = mean desired power / MSE (in dB).
+    std::vector<int8_t> dec = levels_from_nrzi(std::span<const uint8_t>(bits.data(), L), 1);
+    if (!fine_target_.empty()) {
+      // NRZI decisions carry no polarity: take the sign that fits the samples.
+      double se_pos = 0, se_neg = 0, sd = 0;
+      size_t n = 0;
+      for (size_t i = ks + fine_target_.size(); i < std::min(L, ks + header_bits_ + data_bits_); ++i) {
+        double d = convolve_at(fine_target_, dec, i);
+        se_pos += (y[i] - d) * (y[i] - d);
+        se_neg += (y[i] + d) * (y[i] + d);
+        sd += d * d;
+        ++n;
+      }
+      double se = std::min(se_pos, se_neg);
+      if (n > 0 && se > 0) {
+        a.eq_mse = se / static_cast<double>(n);
+        a.snr_db = 10.0 * std::log10(sd / se);
+      }
+    }
+
+    // Fine sync check (evidence): the mark in the fine decisions.
+    int fine_sync = frame::hamming_distance(
+        std::span<const uint8_t>(bits.data() + ks - fmt_.sync_mark.size(), fmt_.sync_mark.size()), fmt_.sync_mark);
+    a.notes.push_back("sync mark at distance " + std::to_string(sync_distance) + " (coarse), " +
+                      std::to_string(fine_sync) + " (fine)");
+
+    // Header.
+    const auto& code = format::rll89_code();
+    std::vector<uint8_t> hb(static_cast<size_t>(fmt_.header_bytes)), he(hb.size());
+    bool header_complete = ks + header_bits_ <= L;
+    std::optional<format::SectorHeader> header;
+    if (header_complete) {
+      code.decode_bits(std::span<const uint8_t>(bits.data() + ks, header_bits_), hb, he);
+      header = format::decode_header_bytes(fmt_, hb);
+    }
+    // Data bytes, their reliabilities and erasure hints.
+    const size_t kd = ks + header_bits_;
+    const size_t nbytes = static_cast<size_t>(fmt_.coded_bytes);
+    std::vector<uint8_t> coded(nbytes, 0), cer(nbytes, 0);
+    std::vector<float> brel(nbytes, 0.0f);
+    size_t present = kd < L ? std::min(nbytes, (L - kd) / 9) : 0;
+    if (present > 0) code.decode_bits(std::span<const uint8_t>(bits.data() + kd, present * 9),
+                                      std::span<uint8_t>(coded.data(), present),
+                                      std::span<uint8_t>(cer.data(), present));
+    double rel_sum = 0;
+    size_t rel_n = 0, weak_bytes = 0;
+    float rel_min = 1e30f;
+    for (size_t b = 0; b < nbytes; ++b) {
+      if (b >= present) {
+        cer[b] = 1;
+        ++weak_bytes;
+        continue;
+      }
+      float m = 1e30f;
+      bool flagged = false;
+      for (size_t j = 0; j < 9; ++j) {
+        size_t i = kd + b * 9 + j;
+        float r = std::fabs(llr[i]);
+        m = std::min(m, r);
+        rel_sum += r;
+        ++rel_n;
+        flagged |= er[i] != 0;
+      }
+      brel[b] = m;
+      rel_min = std::min(rel_min, m);
+      if (flagged) cer[b] = 1;
+      if (m < kWeakLlr || cer[b]) ++weak_bytes;
+    }
+    a.reliability_min = rel_n ? rel_min : 0.0f;
+    a.reliability_mean = rel_n ? static_cast<float>(rel_sum / rel_n) : 0.0f;
+    a.low_reliability_fraction = static_cast<double>(weak_bytes) / static_cast<double>(nbytes);
+    if (present < nbytes) a.notes.push_back("capture ends inside the sector: " + std::to_string(nbytes - present) + " bytes missing");
+
+    a.header_ok = header.has_value();
+    if (header) {
+      // The header names its own address; check it against the capture's track.
+      a.lba = header->lba;
+      a.cylinder = header->cylinder;
+      a.head = header->head;
+      a.sector = header->sector;
+      bool consistent = fmt_.lba(header->cylinder, header->head, header->sector) == header->lba &&
+                        header->cylinder < fmt_.cylinders && header->head < fmt_.heads &&
+                        header->sector < fmt_.sectors_per_track;
+      if (!consistent) {
+        a.header_ok = false;
+        a.notes.push_back("header CRC verified but its fields are inconsistent: ignored");
+      } else if ((cylinder_ && *cylinder_ != header->cylinder) || (head_ && *head_ != header->head)) {
+        a.notes.push_back("header names cylinder " + std::to_string(header->cylinder) + " head " +
+                          std::to_string(header->head) + ", not the capture's track");
+      } else {
+        if (!cylinder_) cylinder_ = header->cylinder;
+        if (!head_) head_ = header->head;
+      }
+    }
+    if (a.header_ok) {
+      anchors_.push_back({a.capture_position, a.sector});
+      finish_sector(a, coded, cer, brel);
+      results_.push_back(std::move(a));
+    } else {
+      a.notes.push_back("header unreadable");
+      deferred_.push_back(Deferred{std::move(a), std::move(coded), std::move(cer), std::move(brel)});
+    }
+  }
+
+  // RS + CRC for a placed sector, with reliability-guided erasures when plain decoding fails.
+  void finish_sector(SectorAttempt& a, const std::vector<uint8_t>& coded, const std::vector<uint8_t>& cer,
+                     const std::vector<float>& brel) {
+    const int I = fmt_.rs.interleave;
+    const int parity = fmt_.rs.parity_symbols;
+    auto count_per_interleave = [&](const std::vector<uint8_t>& flags) {
+      std::vector<int> c(static_cast<size_t>(I), 0);
+      for (size_t t = 0; t < flags.size(); ++t)
+        if (flags[t]) ++c[t % static_cast<size_t>(I)];
+      return c;
+    };
+    std::vector<uint8_t> flags = cer;
+    // Too many hinted erasures in one codeword make the decode impossible: keep the
+    // least reliable `parity` of them.
+    auto cap_flags = [&](std::vector<uint8_t>& f) {
+      for (int i = 0; i < I; ++i) {
+        std::vector<size_t> pos;
+        for (size_t t = static_cast<size_t>(i); t < f.size(); t += static_cast<size_t>(I))
+          if (f[t]) pos.push_back(t);
+        if (static_cast<int>(pos.size()) <= parity) continue;
+        std::sort(pos.begin(), pos.end(), [&](size_t p, size_t q) { return brel[p] < brel[q]; });
+        for (size_t j = static_cast<size_t>(parity); j < pos.size(); ++j) f[pos[j]] = 0;
+      }
+    };
+    cap_flags(flags);
+    format::PayloadDecode d = format::decode_sector_payload(fmt_, static_cast<uint32_t>(a.lba), coded, flags);
+    std::vector<uint8_t> used = flags;
+    if (!d.verified && s_.erasure_search) {
+      // Erase the r least reliable bytes of every codeword, r growing, until the CRC checks.
+      std::vector<std::vector<size_t>> order(static_cast<size_t>(I));
+      for (size_t t = 0; t < coded.size(); ++t) order[t % static_cast<size_t>(I)].push_back(t);
+      for (auto& o : order)
+        std::stable_sort(o.begin(), o.end(), [&](size_t p, size_t q) { return brel[p] < brel[q]; });
+      for (int r = 2; r <= parity; r += 2) {
+        std::vector<uint8_t> f = cer;
+        for (auto& o : order)
+          for (int j = 0; j < r && j < static_cast<int>(o.size()); ++j) f[o[static_cast<size_t>(j)]] = 1;
+        cap_flags(f);
+        format::PayloadDecode t = format::decode_sector_payload(fmt_, static_cast<uint32_t>(a.lba), coded, f);
+        if (t.verified) {
+          d = std::move(t);
+          used = f;
+          a.notes.push_back("verified with the " + std::to_string(r) + " least reliable bytes of each codeword erased");
+          break;
+        }
+      }
+    }
+    a.rs_corrected = d.corrected_per_interleave;
+    a.rs_erasures = count_per_interleave(used);
+    a.crc = d.crc_ok ? "pass" : "fail";
+    a.data = d.user_data;
+    if (d.verified) {
+      a.status = d.rs_corrected > 0 ? SectorStatus::corrected : SectorStatus::good;
+    } else {
+      a.status = SectorStatus::failed;
+      if (d.rs_failures > 0) a.notes.push_back(std::to_string(d.rs_failures) + " codeword(s) uncorrectable");
+      else a.notes.push_back("RS decoded but the CRC-32 failed: rejected");
+    }
+    a.confidence = results::sector_confidence(a);
+  }
+
+  // Places sectors whose header failed, from their distance to sectors whose header
+  // verified: the layout fixes the bit distance between any two sectors of a track.
+  void place_deferred() {
+    if (deferred_.empty()) return;
+    // Capture samples per channel bit: the median over consecutive anchors (the layout
+    // gives their distance in bits, modulo the track length), else the nominal figure.
+    double spb = 0;
+    {
+      std::vector<Anchor> sorted = anchors_;
+      std::sort(sorted.begin(), sorted.end(), [](const Anchor& p, const Anchor& q) { return p.position < q.position; });
+      std::vector<double> est;
+      const double per_track = static_cast<double>(fmt_.bits_per_track);
+      for (size_t i = 1; i < sorted.size(); ++i) {
+        double dbits = static_cast<double>(layout_.sectors[static_cast<size_t>(sorted[i].sector)].sync_bit) -
+                       static_cast<double>(layout_.sectors[static_cast<size_t>(sorted[i - 1].sector)].sync_bit);
+        if (dbits <= 0) dbits += per_track;
+        double v = (sorted[i].position - sorted[i - 1].position) / dbits;
+        if (capture_samples_per_bit_ <= 0 || std::fabs(v / capture_samples_per_bit_ - 1.0) < 0.05) est.push_back(v);
+      }
+      if (!est.empty()) {
+        std::nth_element(est.begin(), est.begin() + static_cast<long>(est.size() / 2), est.end());
+        spb = est[est.size() / 2];
+      }
+    }
+    if (spb <= 0) spb = capture_samples_per_bit_;
+    for (auto& d : deferred_) {
+      SectorAttempt& a = d.attempt;
+      int sector = -1;
+      std::string how;
+      if (!anchors_.empty() && cylinder_ && head_ && spb > 0) {
+        // Nearest anchor.
+        const auto* best = &anchors_.front();
+        for (const auto& an : anchors_)
+          if (std::fabs(an.position - a.capture_position) < std::fabs(best->position - a.capture_position)) best = &an;
+        double bit = static_cast<double>(layout_.sectors[static_cast<size_t>(best->sector)].sync_bit) +
+                     (a.capture_position - best->position) / spb;
+        double per_track = static_cast<double>(fmt_.bits_per_track);
+        bit = std::fmod(std::fmod(bit, per_track) + per_track, per_track);
+        double best_dist = 1e30;
+        for (const auto& sp : layout_.sectors) {
+          // Anchors and this sector are both referenced to the last bit of their sync mark.
+          double dist = std::fabs(static_cast<double>(sp.sync_bit) - bit);
+          dist = std::min(dist, per_track - dist);
+          if (dist < best_dist) {
+            best_dist = dist;
+            sector = sp.sector;
+          }
+        }
+        // Accept only a placement within a small share of the sector pitch.
+        if (best_dist > 0.05 * fmt_.sector_bits) sector = -1;
+        else how = "placed by position: " + std::to_string(static_cast<long>(best_dist)) +
+                   " bits from the nominal sync mark of sector " + std::to_string(sector);
+      }
+      if (sector < 0 || !cylinder_ || !head_) {
+        a.notes.push_back("header unreadable and position ambiguous: not placed");
+        continue;  // cannot put it anywhere: the sector stays missing unless another revolution finds it
+      }
+      a.cylinder = *cylinder_;
+      a.head = *head_;
+      a.sector = sector;
+      a.lba = fmt_.lba(a.cylinder, a.head, a.sector);
+      a.placed_by_position = true;
+      a.notes.push_back(how);
+      finish_sector(a, d.coded, d.erasures, d.byte_reliability);
+      results_.push_back(std::move(a));
+    }
+    deferred_.clear();
+  }
+
+ public:
+  double capture_samples_per_bit_ = 0;
+
+ private:
+  struct Anchor {
+    double position;
+    int sector;
+  };
+
+  const format::TrackFormat& fmt_;
+  const detect::PluginHost& host_;
+  DecodeSettings s_;
+  std::string capture_name_;
+  std::optional<int> cylinder_, head_;
+  int revolution_ = 0;
+  format::TrackLayout layout_;
+
+  std::vector<uint8_t> known_bits_;
+  size_t known_len_ = 0, header_bits_ = 0, data_bits_ = 0, margin_ = 0, window_len_ = 0;
+
+  std::vector<RingEntry> ring_;
+  uint64_t count_ = 0;             // bit samples received
+  uint64_t coarse_y_count_ = 0;    // coarse equalizer outputs stored
+  uint64_t coarse_bit_count_ = 0;  // coarse decisions stored
+
+  std::vector<double> coarse_target_;
+  std::unique_ptr<equalize::Equalizer> coarse_eq_;
+  std::unique_ptr<detect::Detector> coarse_det_;
+  std::unique_ptr<frame::SyncSearch> sync_;
+  std::vector<frame::SyncHit> hits_pending_;
+  std::optional<uint64_t> last_sector_end_;
+  uint64_t sync_marks_ = 0;
+
+  equalize::TargetSpec fine_spec_;
+  std::vector<double> fine_target_;
+  std::unique_ptr<equalize::Equalizer> fine_eq_;
+  std::unique_ptr<detect::Detector> fine_det_;
+
+  std::vector<Anchor> anchors_;
+  std::vector<Deferred> deferred_;
+  std::vector<SectorAttempt> results_;
+};
+
+}  // namespace
+
+CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::LoadOptions& load_options) {
+  load::LoadOptions lo = load_options;
+  load::CaptureReader reader = load::open_capture(capture.path, lo);
+  const load::CaptureInfo& info = reader.info();
+
+  if (!info.format.empty() && info.format != fmt_.name)
+    throw_input(capture.path.string(), "capture is in format '" + info.format + "', the job decodes '" +
+                                           fmt_.name + "' (use the right --format or job)");
+  JobCapture cap = capture;
+  if (!cap.cylinder) cap.cylinder = info.cylinder;
+  if (!cap.head) cap.head = info.head;
+  if (!cap.revolution) cap.revolution = info.revolution;
+
+  CaptureResult result;
+  CaptureSummary& sum = result.summary;
+  sum.path = capture.path.string();
+  sum.sample_rate_hz = info.sample_rate_hz;
+  sum.cylinder = cap.cylinder.value_or(-1);
+  sum.head = cap.head.value_or(-1);
+  sum.revolution = cap.revolution.value_or(-1);
+  if (settings_.bit_rate_hz) {
+    sum.bit_rate_hz = *settings_.bit_rate_hz;
+    sum.bit_rate_source = "option";
+  } else if (info.bit_rate_hz) {
+    sum.bit_rate_hz = *info.bit_rate_hz;
+    sum.bit_rate_source = "sidecar";
+  } else {
+    sum.bit_rate_hz = fmt_.bit_rate_hz;
+    sum.bit_rate_source = "descriptor";
+  }
+  const double spb_capture = info.sample_rate_hz / sum.bit_rate_hz;
+  if (spb_capture < 1.2)
+    throw_input(capture.path.string(), "sample rate " + std::to_string(info.sample_rate_hz) +
+                                           " Hz is too low for a bit rate of " + std::to_string(sum.bit_rate_hz) +
+                                           " Hz (need more than 1.2 samples per bit)");
+
+  ConditionerConfig cc;
+  cc.sample_rate_hz = info.sample_rate_hz;
+  cc.bit_rate_hz = sum.bit_rate_hz;
+  cc.full_scale = info.full_scale;
+  Conditioner cond(cc);
+  Resampler rs(ResamplerConfig::for_bit_rate(info.sample_rate_hz, sum.bit_rate_hz, settings_.samples_per_bit));
+  timing::TimingLoopConfig tc;
+  tc.samples_per_bit = settings_.samples_per_bit;
+  tc.acquire_bandwidth = settings_.pll_acquire_bandwidth;
+  tc.track_bandwidth = settings_.pll_track_bandwidth;
+  tc.pw50_bits = settings_.pw50_bits;
+  timing::TimingLoop pll(tc);
+
+  TrackFramer framer(fmt_, host_, settings_, cap, capture.path.filename().string());
+  framer.capture_samples_per_bit_ = spb_capture;
+
+  const size_t chunk = 1 << 16;
+  std::vector<float> raw(chunk), conditioned(chunk + cond.latency() + 16);
+  std::vector<uint8_t> cflags(conditioned.size());
+  std::vector<float> resampled(static_cast<size_t>(chunk / std::max(1.0, spb_capture / settings_.samples_per_bit)) + 4096);
+  std::vector<uint8_t> rflags(resampled.size());
+  std::vector<timing::BitSample> bits(resampled.size());
+  std::vector<uint8_t> bflags(bits.size());
+  // Resampled flags by absolute resampled index, for the bit samples the PLL makes.
+  std::vector<uint8_t> flag_ring(1 << 16, 0);
+  uint64_t resampled_count = 0;
+
+  auto run_pll = [&](std::span<const float> in) {
+    size_t off = 0;
+    while (off < in.size()) {
+      Progress p = pll.process(in.subspan(off), bits);
+      off += p.consumed;
+      for (size_t i = 0; i < p.produced; ++i) {
+        auto idx = static_cast<int64_t>(std::llround(bits[i].position));
+        uint8_t f = 0;
+        for (int64_t j = idx - 1; j <= idx + 1; ++j)
+          if (j >= 0 && static_cast<uint64_t>(j) < resampled_count &&
+              resampled_count - static_cast<uint64_t>(j) < flag_ring.size())
+            f |= flag_ring[static_cast<size_t>(j) % flag_ring.size()];
+        bflags[i] = f;
+        bits[i].position = rs.input_position(0) + bits[i].position * rs.ratio();  // capture samples
+      }
+      framer.push(std::span<const timing::BitSample>(bits.data(), p.produced),
+                  std::span<const uint8_t>(bflags.data(), p.produced));
+      if (p.consumed == 0 && p.produced == 0) break;
+    }
+  };
+  auto run_resampler = [&](std::span<const float> in, std::span<const uint8_t> fl, bool flushing) {
+    size_t off = 0;
+    while (true) {
+      Progress p;
+      if (flushing) {
+        p = rs.flush(resampled, rflags);
+      } else {
+        if (off >= in.size()) break;
+        p = rs.process(in.subspan(off), fl.subspan(off), resampled, rflags);
+        off += p.consumed;
+      }
+      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) % flag_ring.size()] = rflags[i];
+      resampled_count += p.produced;
+      run_pll(std::span<const float>(resampled.data(), p.produced));
+      if (flushing && p.produced == 0) break;
+      if (!flushing && p.consumed == 0 && p.produced == 0) break;
+    }
+  };
+
+  uint64_t total = 0;
+  while (size_t n = reader.read(raw)) {
+    total += n;
+    size_t off = 0;
+    while (off < n) {
+      Progress p = cond.process(std::span<const float>(raw.data() + off, n - off), conditioned, cflags);
+      off += p.consumed;
+      run_resampler(std::span<const float>(conditioned.data(), p.produced),
+                    std::span<const uint8_t>(cflags.data(), p.produced), false);
+      if (p.consumed == 0) break;
+    }
+  }
+  {
+    std::vector<float> tail(cond.pending() + 16);
+    std::vector<uint8_t> tf(tail.size());
+    Progress p = cond.flush(tail, tf);
+    run_resampler(std::span<const float>(tail.data(), p.produced), std::span<const uint8_t>(tf.data(), p.produced),
+                  false);
+    run_resampler({}, {}, true);
+  }
+  framer.finish();
+
+  sum.samples = total;
+  sum.bits = framer.bits();
+  sum.sync_marks = framer.sync_marks();
+  sum.lock_losses = pll.stats().lock_losses;
+  sum.cycle_slips = pll.stats().cycle_slips;
+  sum.rate_offset_ppm = pll.stats().rate_offset * 1e6;
+  sum.clipped_fraction = cond.summary().clipped_fraction;
+  sum.equalizer_taps = framer.fine_taps();
+  sum.target = framer.fine_target();
+  sum.target_name = framer.fine_target_name();
+  result.sectors = framer.take_results();
+  return result;
+}
+
+}  // namespace salvor::pipeline
