@@ -38,16 +38,22 @@ struct ReedSolomonParams {
 struct ServoParams {
   int wedges_per_track = 0;  // 0 = no servo wedges
   int wedge_bits = 0;        // channel bits per wedge
+  int preamble_bits = 0;               // servo preamble at the start of a wedge
+  std::vector<uint8_t> preamble_pattern;  // channel bits repeated from the wedge start (3T: 0,0,1)
+  std::vector<uint8_t> mark;           // servo mark, channel bits, first transmitted first
+  std::vector<uint8_t> fill_pattern;   // after the wedge index and cylinder, to the wedge end
 };
 
 struct TrackFormat {
   std::string name;                     // e.g. "tf1-512"
   std::filesystem::path source;         // descriptor file it came from (for messages)
   int version = 1;
+  std::string description;              // free text from [format]
 
   // Channel
   double bit_rate_hz = 0;               // nominal channel bit rate
   std::string precoder = "nrzi";        // 1/(1 xor D): a channel 1 is a write-current reversal
+  int initial_level = -1;               // write level before bit 0 of a track (-1 or +1)
 
   // Geometry (no zones: every track has the same layout)
   int heads = 0;
@@ -62,6 +68,9 @@ struct TrackFormat {
   int sync_tolerance = 0;               // Hamming distance accepted when searching
   int postamble_bits = 0;
   int gap_bits = 0;                     // between the postamble of one sector and the next preamble
+  std::vector<uint8_t> preamble_pattern;   // channel bits repeated from the preamble start ({0,1})
+  std::vector<uint8_t> postamble_pattern;  // repeated from the postamble start ({0,1})
+  std::vector<uint8_t> gap_pattern;        // repeated from bit 0 of the track ({0,0,0,1})
 
   // Header
   CrcParams header_crc;                 // over the header bytes before the CRC
@@ -83,6 +92,9 @@ struct TrackFormat {
   int codeword_data_bytes = 0;          // payload_bytes / interleave
   int codeword_bytes = 0;               // codeword_data_bytes + parity_symbols
   int coded_bytes = 0;                  // codeword_bytes * interleave (bytes on the medium)
+  int data_crc_bytes = 0;               // data_crc.width / 8
+  int header_bits = 0;                  // header_bytes * 9
+  int data_bits = 0;                    // coded_bytes * 9
   int sector_bits = 0;                  // preamble .. postamble, channel bits
 
   // LBA of a sector: (cylinder * heads + head) * sectors_per_track + sector.

@@ -1,0 +1,68 @@
+#include "condition/agc.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <sstream>
+
+#include "common/error.hpp"
+
+namespace salvor {
+
+Agc::Agc(const AgcConfig& c) : cfg_(c) {
+  if (!(c.samples_per_bit > 1.0) || !std::isfinite(c.samples_per_bit))
+    throw_usage("condition.agc.samples_per_bit", "must be > 1, got " + std::to_string(c.samples_per_bit));
+  if (!(c.time_constant_bits >= 1.0 && c.time_constant_bits <= 1e7))
+    throw_usage("condition.agc.time_constant_bits", "must be in [1, 1e7], got " + std::to_string(c.time_constant_bits));
+  if (!(c.reference_rms > 0.0) || !std::isfinite(c.reference_rms))
+    throw_usage("condition.agc.reference_rms", "must be > 0, got " + std::to_string(c.reference_rms));
+  if (!(c.max_gain > 0.0) || !std::isfinite(c.max_gain))
+    throw_usage("condition.agc.max_gain", "must be > 0, got " + std::to_string(c.max_gain));
+  if (!(c.initial_gain > 0.0) || !std::isfinite(c.initial_gain))
+    throw_usage("condition.agc.initial_gain", "must be > 0, got " + std::to_string(c.initial_gain));
+  alpha_ = 1.0 - std::exp(-1.0 / (c.time_constant_bits * c.samples_per_bit));
+  reset();
+}
+
+void Agc::reset() {
+  acc_ = weight_ = 0.0;
+  gain_ = cfg_.initial_gain;
+  frozen_ = cfg_.frozen;
+}
+
+std::string Agc::describe() const {
+  std::ostringstream s;
+  s << "agc: rms to " << cfg_.reference_rms << ", time constant " << cfg_.time_constant_bits
+    << " bits, max gain " << cfg_.max_gain << (frozen_ ? ", frozen" : "");
+  return s.str();
+}
+
+template <bool with_flags>
+Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
+                  std::span<uint8_t> out_flags) {
+  const size_t n = std::min(in.size(), out.size());
+  for (size_t i = 0; i < n; ++i) {
+    const double x = in[i];
+    bool update = !frozen_;
+    if constexpr (with_flags) {
+      out_flags[i] = in_flags[i];
+      update = update && in_flags[i] == 0;
+    }
+    if (update) {
+      acc_ += alpha_ * (x * x - acc_);
+      weight_ += alpha_ * (1.0 - weight_);
+      const double ms = acc_ / weight_;
+      gain_ = ms > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms / std::sqrt(ms)) : cfg_.max_gain;
+    }
+    out[i] = static_cast<float>(x * gain_);
+  }
+  return {n, n};
+}
+
+Progress Agc::process(std::span<const float> in, std::span<float> out) { return run<false>(in, {}, out, {}); }
+
+Progress Agc::process(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
+                      std::span<uint8_t> out_flags) {
+  return run<true>(in, in_flags, out, out_flags);
+}
+
+}  // namespace salvor

@@ -1,0 +1,65 @@
+#include "condition/baseline_filter.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <sstream>
+
+#include "common/error.hpp"
+
+namespace salvor {
+
+BaselineFilter::BaselineFilter(const BaselineFilterConfig& c) {
+  if (!(c.samples_per_bit > 1.0) || !std::isfinite(c.samples_per_bit))
+    throw_usage("condition.baseline.samples_per_bit", "must be > 1, got " + std::to_string(c.samples_per_bit));
+  if (!(c.corner_fraction > 0.0 && c.corner_fraction <= 0.05))
+    throw_usage("condition.baseline.corner_fraction", "must be in (0, 0.05] of the bit rate, got " +
+                                                          std::to_string(c.corner_fraction));
+  corner_ = c.corner_fraction / c.samples_per_bit;
+  const double w0 = 2.0 * 3.14159265358979323846 * corner_;
+  const double alpha = std::sin(w0) / (2.0 * (1.0 / std::sqrt(2.0)));
+  const double cw = std::cos(w0);
+  const double a0 = 1.0 + alpha;
+  b0_ = (1.0 + cw) / 2.0 / a0;
+  b1_ = -(1.0 + cw) / a0;
+  b2_ = (1.0 + cw) / 2.0 / a0;
+  a1_ = -2.0 * cw / a0;
+  a2_ = (1.0 - alpha) / a0;
+}
+
+void BaselineFilter::reset() {
+  s1_ = s2_ = 0.0;
+  primed_ = false;
+}
+
+std::string BaselineFilter::describe() const {
+  std::ostringstream s;
+  s << "baseline: 2nd-order Butterworth high-pass, corner " << corner_ << " cycles/sample";
+  return s.str();
+}
+
+Progress BaselineFilter::process(std::span<const float> in, std::span<float> out) {
+  const size_t n = std::min(in.size(), out.size());
+  for (size_t i = 0; i < n; ++i) {
+    const double x = in[i];
+    if (!primed_) {
+      // Steady state for constant input x: output 0, s1 = -b0 x, s2 = (b2 - a2 * 0) x.
+      s1_ = -b0_ * x;
+      s2_ = b2_ * x;
+      primed_ = true;
+    }
+    const double y = b0_ * x + s1_;
+    s1_ = b1_ * x - a1_ * y + s2_;
+    s2_ = b2_ * x - a2_ * y;
+    out[i] = static_cast<float>(y);
+  }
+  return {n, n};
+}
+
+Progress BaselineFilter::process(std::span<const float> in, std::span<const uint8_t> in_flags,
+                                 std::span<float> out, std::span<uint8_t> out_flags) {
+  const auto p = process(in, out);
+  std::copy_n(in_flags.begin(), p.produced, out_flags.begin());
+  return p;
+}
+
+}  // namespace salvor

@@ -1,0 +1,93 @@
+#include "condition/dropout_detector.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <sstream>
+
+#include "common/error.hpp"
+#include "condition/flags.hpp"
+
+namespace salvor {
+
+DropoutDetector::DropoutDetector(const DropoutDetectorConfig& c) : cfg_(c) {
+  const std::string w = "condition.dropout.";
+  if (!(c.samples_per_bit > 1.0) || !std::isfinite(c.samples_per_bit))
+    throw_usage(w + "samples_per_bit", "must be > 1, got " + std::to_string(c.samples_per_bit));
+  if (!(c.window_bits >= 1.0 && c.window_bits <= 4096.0))
+    throw_usage(w + "window_bits", "must be in [1, 4096], got " + std::to_string(c.window_bits));
+  if (!(c.threshold > 0.0 && c.threshold < 1.0))
+    throw_usage(w + "threshold", "must be in (0, 1), got " + std::to_string(c.threshold));
+  if (!(c.level_time_constant_bits >= 10.0 && c.level_time_constant_bits <= 1e7))
+    throw_usage(w + "level_time_constant_bits", "must be in [10, 1e7], got " + std::to_string(c.level_time_constant_bits));
+  half_ = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * c.samples_per_bit)));
+  width_ = 2 * half_ + 1;
+  alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
+  ring_x_.assign(width_, 0.0f);
+  ring_f_.assign(width_, 0);
+  reset();
+}
+
+void DropoutDetector::reset() {
+  sum_abs_ = 0.0;
+  next_in_ = next_center_ = window_start_ = 0;
+  since_recompute_ = 0;
+  acc_ = weight_ = 0.0;
+  level_updates_ = 0;
+}
+
+std::string DropoutDetector::describe() const {
+  std::ostringstream s;
+  s << "dropout: envelope over " << width_ << " samples below " << cfg_.threshold << " x running level";
+  return s.str();
+}
+
+void DropoutDetector::pop_oldest() {
+  sum_abs_ -= std::abs(ring_x_[window_start_ % width_]);
+  ++window_start_;
+}
+
+void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
+  while (window_start_ + half_ < next_center_) pop_oldest();
+  if (++since_recompute_ >= width_) {  // exact sum now and then: no rounding drift
+    since_recompute_ = 0;
+    sum_abs_ = 0.0;
+    for (uint64_t k = window_start_; k < next_in_; ++k) sum_abs_ += std::abs(ring_x_[k % width_]);
+  }
+  const uint64_t i = next_center_++;
+  const float x = ring_x_[i % width_];
+  uint8_t f = ring_f_[i % width_];
+  const double envelope = sum_abs_ / static_cast<double>(next_in_ - window_start_);
+  const double level = weight_ > 0.0 ? acc_ / weight_ : 0.0;
+  if (level_updates_ >= width_ && envelope < cfg_.threshold * level) f |= flag_dropout;
+  if (f == 0) {
+    acc_ += alpha_ * (std::abs(x) - acc_);
+    weight_ += alpha_ * (1.0 - weight_);
+    ++level_updates_;
+  }
+  out[produced] = x;
+  out_flags[produced] = f;
+  ++produced;
+}
+
+Progress DropoutDetector::process(std::span<const float> in, std::span<const uint8_t> in_flags,
+                                  std::span<float> out, std::span<uint8_t> out_flags) {
+  const size_t n = std::min(in.size(), out.size());
+  size_t produced = 0;
+  for (size_t k = 0; k < n; ++k) {
+    if (next_in_ - window_start_ == width_) pop_oldest();
+    ring_x_[next_in_ % width_] = in[k];
+    ring_f_[next_in_ % width_] = in_flags[k];
+    sum_abs_ += std::abs(in[k]);
+    ++next_in_;
+    if (next_in_ >= next_center_ + half_ + 1) emit_center(out, out_flags, produced);
+  }
+  return {n, produced};
+}
+
+Progress DropoutDetector::flush(std::span<float> out, std::span<uint8_t> out_flags) {
+  size_t produced = 0;
+  while (next_center_ < next_in_ && produced < out.size()) emit_center(out, out_flags, produced);
+  return {0, produced};
+}
+
+}  // namespace salvor

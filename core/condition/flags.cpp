@@ -1,0 +1,50 @@
+#include "condition/flags.hpp"
+
+namespace salvor {
+
+std::string flag_kind_name(FlagKind kind) {
+  switch (kind) {
+    case flag_clipped: return "clipped";
+    case flag_thermal_asperity: return "thermal_asperity";
+    case flag_dropout: return "dropout";
+  }
+  return "unknown";
+}
+
+void SpanCollector::add(uint64_t first_index, std::span<const uint8_t> flags) {
+  for (size_t i = 0; i < flags.size(); ++i) {
+    const uint8_t f = flags[i];
+    for (int k = 0; k < kinds; ++k) {
+      const bool on = (f >> k) & 1u;
+      if (on && !open_[k]) {
+        open_[k] = true;
+        open_start_[k] = first_index + i;
+      } else if (!on && open_[k]) {
+        open_[k] = false;
+        spans_.push_back({open_start_[k], first_index + i, static_cast<FlagKind>(1u << k)});
+      }
+    }
+  }
+}
+
+void SpanCollector::close(uint64_t end_index) {
+  for (int k = 0; k < kinds; ++k) {
+    if (open_[k]) {
+      open_[k] = false;
+      spans_.push_back({open_start_[k], end_index, static_cast<FlagKind>(1u << k)});
+    }
+  }
+}
+
+std::vector<FlagSpan> SpanCollector::take_spans() {
+  std::vector<FlagSpan> out;
+  out.swap(spans_);
+  return out;
+}
+
+void SpanCollector::reset() {
+  for (int k = 0; k < kinds; ++k) open_[k] = false;
+  spans_.clear();
+}
+
+}  // namespace salvor

@@ -1,0 +1,73 @@
+#pragma once
+// Thermal asperity (TA): a head-disk contact heats the MR element and the readback
+// baseline jumps by several times the signal amplitude, then decays exponentially over
+// hundreds of bits (the effect and its baseline-restoration remedy: R. D. Cideciyan et
+// al., "A PRML system for digital magnetic recording", IEEE JSAC 10(1):38-56, 1992,
+// and Wang & Taratorin, Magnetic Information Storage Technology, 1999 [memory]).
+//
+// Detection: the baseline is estimated by a running median over a centred window of
+// window_bits (a median follows the sharp onset without the lag of a linear low-pass,
+// and the DC-free data hardly moves it; J. W. Tukey, Exploratory Data Analysis, 1977, for
+// running medians [memory]). A span opens when |baseline| > detect_ratio x signal rms and
+// closes when the baseline, smoothed inside the span by a one-pole low-pass with the
+// window's length as time constant (the raw median scatters by ~0.2 rms on data and would
+// close the span early), falls below release_ratio x signal rms. The signal rms is tracked from the
+// residual (input - baseline) outside flagged samples, time constant level_time_constant_bits.
+// Suppression: inside the span the baseline is subtracted. The span is flagged
+// `thermal_asperity`. Thresholds: common practice, no source.
+//
+// Output sample i is input sample i; the centred window needs half a window of look-ahead,
+// held back by process() and emitted by flush().
+
+#include <cstdint>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "common/stream.hpp"
+
+namespace salvor {
+
+struct ThermalAsperityConfig {
+  double samples_per_bit = 0.0;            // capture samples per channel bit, > 1
+  double window_bits = 16.0;               // running-median window, [2, 4096]
+  double detect_ratio = 2.0;               // span opens at |baseline| > ratio x rms, > release
+  double release_ratio = 0.3;              // span closes at |smoothed baseline| < ratio x rms, > 0
+  double level_time_constant_bits = 2000;  // signal rms tracking, [10, 1e7]
+  bool suppress = true;                    // subtract the baseline inside spans
+};
+
+class ThermalAsperityFilter {
+ public:
+  explicit ThermalAsperityFilter(const ThermalAsperityConfig& config);
+  Progress process(std::span<const float> in, std::span<const uint8_t> in_flags,
+                   std::span<float> out, std::span<uint8_t> out_flags);
+  Progress flush(std::span<float> out, std::span<uint8_t> out_flags);
+  void reset();
+  std::string describe() const;
+  size_t lookahead() const { return half_; }
+  double signal_rms() const;  // tracked rms of input - baseline outside flagged samples
+
+ private:
+  void push(float x, uint8_t f);
+  void pop_oldest();
+  void emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced);
+  double median() const;
+
+  ThermalAsperityConfig cfg_;
+  size_t half_, width_;
+  double alpha_;
+  std::vector<float> ring_x_;
+  std::vector<uint8_t> ring_f_;
+  std::vector<float> sorted_;
+  uint64_t next_in_ = 0;       // index of the next input sample
+  uint64_t next_center_ = 0;   // index of the next output sample
+  uint64_t window_start_ = 0;  // oldest index in the window
+  double acc_ = 0.0, weight_ = 0.0;
+  uint64_t level_updates_ = 0;
+  bool in_span_ = false;
+  double smooth_ = 0.0;  // low-passed baseline inside a span
+  double smooth_alpha_ = 0.0;
+};
+
+}  // namespace salvor
