@@ -1,0 +1,136 @@
+#pragma once
+// Sliding-window Viterbi detector over a Trellis, with three branch metrics:
+//
+//  euclidean          (y_k - yhat)^2: maximum-likelihood sequence detection in white
+//                     Gaussian noise (A. J. Viterbi, IEEE Trans. IT-13(2):260-269, 1967;
+//                     G. D. Forney, Proc. IEEE 61(3):268-278, 1973).
+//  noise_predictive   (y_k - yhat - sum_i p_i n~_(k-i))^2 with n~ taken from each survivor's
+//                     own past decisions (Coker, Eleftheriou, Galbraith & Hirt, "Noise-
+//                     predictive maximum likelihood (NPML) detection", IEEE Trans. Magn.
+//                     34(1):110-117, 1998).
+//  pattern_dependent  ln s2(c) + (y_k - yhat - b(c) - sum_i p_i(c) n~_(k-i))^2 / s2(c) for
+//                     the branch's data pattern c (Kavcic & Moura, IEEE Trans. IT
+//                     46(1):291-301, 2000; Moon & Park, IEEE JSAC 19(4):730-743, 2001).
+//
+// Per-bit reliabilities follow the soft-output Viterbi algorithm of Hagenauer & Hoeher
+// ("A Viterbi algorithm with soft-decision outputs and its applications", GLOBECOM 1989):
+// at every step of the final survivor the metric difference Delta to the competing path
+// is kept, and every NRZI bit within `reliability_window` steps back on which the
+// competitor disagrees has its reliability lowered to Delta. Metrics are -2 ln p(y|path)
+// up to constants scaled by 2 s2, so LLR = Delta / (2 s2) (Delta / 2 for the
+// pattern-dependent metric, whose variances are inside it).
+//
+// Streaming: decisions are packed one bit per state in a 32-bit word per step, kept in a
+// window of 2 * traceback_depth steps. When the window is full, the best survivor is
+// traced back and the oldest traceback_depth bits are released (block traceback); so
+// at most 2 * traceback_depth - 1 bits are held back. Path metrics are renormalised
+// (minimum subtracted) after every step. A span starts with every state equally likely
+// (no assumption about the levels before the first sample) and flush() traces back from
+// the best final state. Block boundaries depend only on the step count, so any chunking
+// of the input gives the same bits and LLRs.
+//
+// When noise_sigma is not known, s2 is estimated from the decided path: the mean square
+// of (y - yhat) (euclidean) or of the prediction error (noise-predictive, untrained),
+// accumulated over everything released since the last reset().
+
+#include <cstdint>
+#include <span>
+#include <string>
+#include <vector>
+
+#include "common/stream.hpp"
+#include "trellis/noise_model.hpp"
+#include "trellis/trellis.hpp"
+
+namespace salvor::trellis {
+
+enum class MetricKind { euclidean, noise_predictive, pattern_dependent };
+
+struct SequenceDetectorConfig {
+  MetricKind kind = MetricKind::euclidean;
+  int traceback_depth = 64;     // bits; 8..256. Also the number of bits released per traceback
+  bool reliability = true;      // compute SOVA reliabilities (else |LLR| = a fixed estimate)
+  int reliability_window = 32;  // steps back from a merge that it may update; 1..traceback_depth
+  double noise_sigma = 0.0;     // rms noise at the input; <= 0: estimate (see above)
+  int predictor_order = 2;      // noise_predictive 1..4, pattern_dependent 0..4
+  int pattern_bits = 3;         // pattern_dependent: levels x_k..x_(k-P+1) in a pattern, 1..6
+  bool adapt = false;           // noise models: estimate from decisions while untrained
+  size_t adapt_min_samples = 2048;  // decided samples before the first adapted model
+};
+
+class SequenceDetector {
+ public:
+  static constexpr float kLlrCap = 60.0f;  // |LLR| saturation (no competitor seen)
+  static constexpr int kMaxTraceback = 256;
+
+  SequenceDetector(std::span<const double> target, const SequenceDetectorConfig& config);
+
+  // Learn the noise model from samples whose NRZI bits are known; `level_before` is the
+  // written level (+1/-1) before bit 0. Accumulates over calls. Euclidean: no-op.
+  void train(std::span<const float> samples, std::span<const uint8_t> known_bits, int level_before);
+  bool trained() const { return trained_; }
+
+  // Consumes samples while there is room for what they release. `erasure` is empty or
+  // one flag per sample (1 = no information: branch metric 0).
+  Progress process(std::span<const float> samples, std::span<const uint8_t> erasure,
+                   std::span<uint8_t> bits, std::span<float> llr);
+  // Releases every held-back bit (needs held_back() room) and starts a new span.
+  size_t flush(std::span<uint8_t> bits, std::span<float> llr);
+  // Clears the span and everything estimated from decisions; keeps training.
+  void reset();
+  size_t held_back() const { return count_; }
+  size_t max_held_back() const { return 2 * static_cast<size_t>(config_.traceback_depth) - 1; }
+
+  const Trellis& trellis() const { return trellis_; }
+  const SequenceDetectorConfig& config() const { return config_; }
+  const LinearPredictor& predictor() const { return predictor_; }
+  const PatternNoiseModel& pattern_model() const { return pattern_model_; }
+  std::string describe() const;
+
+ private:
+  void step(float y, bool erased);
+  void release(size_t emit, std::span<uint8_t> bits, std::span<float> llr);
+  void clear_span();
+  bool has_noise_model() const { return model_ready_; }
+  double llr_scale() const;
+
+  Trellis trellis_;
+  SequenceDetectorConfig config_;
+  int S_;          // states
+  int N_;          // predictor order in use (0 for euclidean)
+  size_t window_;  // 2 * traceback_depth
+  double d2min_;   // for the fixed |LLR| when reliabilities are off
+
+  // Noise models and their estimators.
+  bool trained_ = false;
+  bool model_ready_ = false;  // a predictor / pattern model is installed
+  LinearPredictor predictor_;
+  PatternNoiseModel pattern_model_;
+  PredictorEstimator np_estimator_;
+  PatternPredictorEstimator pd_estimator_;
+  std::array<std::vector<uint8_t>, 2> pattern_of_;  // pattern of branch (j, s)
+
+  // Add-compare-select state (structure of arrays over states).
+  std::vector<double> pm_, pm_next_;
+  std::vector<double> hist_, hist_next_;  // [i * S + s]: survivor noise n_(k-1-i)
+  std::vector<double> branch_scratch_;
+
+  // Window of the last `count_` steps, a ring starting at `head_`.
+  std::vector<uint32_t> decisions_;  // bit s: branch index into state s
+  std::vector<float> delta_;         // [slot * S + s]: |metric difference| at the merge
+  std::vector<float> y_;
+  std::vector<uint8_t> erased_;
+  size_t head_ = 0, count_ = 0;
+
+  // Traceback scratch (sized to the window).
+  std::vector<uint8_t> path_state_, path_branch_, path_bit_;
+  std::vector<float> path_rel_;
+
+  // Decided-path history for estimates (kept across blocks of a span).
+  std::vector<double> decided_noise_;  // newest first, N_ values
+  int decided_valid_ = 0;              // how many of them are real (not span start)
+  double residual_sum_ = 0.0;          // sum of squared decided residuals
+  size_t residual_count_ = 0;
+};
+
+}  // namespace salvor::trellis
