@@ -100,7 +100,8 @@ typedef struct salvor_detector_api {
   const char* version;   /* the plugin's own version, e.g. "1.0.0" */
   const char* description;
   const char* target;    /* target it wants from the equalizer: "PR4", "EPR4", "E2PR4",
-                            "GPR" (a generalized MMSE target), "none" (unequalized) */
+                            "dicode" (1-D), "GPR" (a generalized MMSE target; "GPR3".."GPR5"
+                            fix its length), "none" (unequalized); case-insensitive */
   int soft_output;       /* 1 if llr is a calibrated log-likelihood ratio */
   size_t max_latency;    /* bits a process() call may hold back */
   const salvor_param_desc* params;

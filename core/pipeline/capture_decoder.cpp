@@ -5,8 +5,6 @@
 #include <deque>
 #include <map>
 #include <numeric>
-#include <cstdio>
-#include <cstdlib>
 
 #include "common/error.hpp"
 #include "condition/conditioner.hpp"
@@ -97,7 +95,6 @@ struct RingEntry {
   uint8_t coarse_bit = 0; // coarse detector decision (NRZI)
   uint8_t flag = 0;       // conditioning flags (erasure hint)
   double position = 0;    // capture position (input sample index)
-  uint8_t state = 0;      // PLL state (debug)
 };
 
 // A sector whose header did not verify: kept for placement at the end of the capture.
@@ -215,7 +212,6 @@ class TrackFramer {
       e.value = bits[i].value;
       e.position = bits[i].position;
       e.flag = flags[i];
-      e.state = static_cast<uint8_t>(bits[i].state);
       ++count_;
     }
     run_coarse(bits.size());
@@ -290,10 +286,6 @@ class TrackFramer {
   }
 
   void store_coarse_bits(std::span<const uint8_t> b) {
-    static FILE* dump = std::getenv("SALVOR_DEBUG_DUMP") ? std::fopen(std::getenv("SALVOR_DEBUG_DUMP"), "w") : nullptr;
-    for (size_t i = 0; i < b.size(); ++i) {
-      if (dump) std::fprintf(dump, "%d %.4f %.4f %.2f %d\n", b[i], at(coarse_bit_count_ + i).value, at(coarse_bit_count_ + i).coarse_y, at(coarse_bit_count_ + i).position, at(coarse_bit_count_ + i).state);
-    }
     for (size_t i = 0; i < b.size(); ++i) at(coarse_bit_count_ + i).coarse_bit = b[i];
     coarse_bit_count_ += b.size();
     sync_->process(b, hits_pending_);
@@ -318,7 +310,6 @@ class TrackFramer {
         continue;
       }
       hits_pending_.erase(hits_pending_.begin());
-      if (std::getenv("SALVOR_DEBUG_FRAMER")) std::fprintf(stderr, "hit end=%llu d=%d pos=%.1f\n", (unsigned long long)end, h.distance, at(end-1).position);
       // Two hits inside one sector: the later one is a false alarm in the data.
       if (last_sector_end_ && end < *last_sector_end_) continue;
       ++sync_marks_;
@@ -486,6 +477,28 @@ class TrackFramer {
     a.low_reliability_fraction = static_cast<double>(weak_bytes) / static_cast<double>(nbytes);
     if (present < nbytes) a.notes.push_back("capture ends inside the sector: " + std::to_string(nbytes - present) + " bytes missing");
 
+    if (s_.keep_channel_bits) {
+      size_t e = std::min(L, kd + data_bits_);
+      a.channel_bits.assign(bits.begin() + static_cast<long>(ks), bits.begin() + static_cast<long>(e));
+    }
+    if (probe_ && header && probe_->eye_lba && *probe_->eye_lba == header->lba && probe_->eye_samples.empty() &&
+        !fine_target_.empty()) {
+      // Eye diagram material: equalized samples and the target applied to the decisions
+      // (with the polarity that fits), from the header to the end of the data.
+      double sp = 0, sn = 0;
+      for (size_t i = ks; i < std::min(L, kd + data_bits_); ++i) {
+        double d = convolve_at(fine_target_, dec, i);
+        sp += (y[i] - d) * (y[i] - d);
+        sn += (y[i] + d) * (y[i] + d);
+      }
+      double sign = sp <= sn ? 1.0 : -1.0;
+      for (size_t i = ks; i < std::min(L, kd + data_bits_); ++i) {
+        probe_->eye_samples.push_back(y[i]);
+        probe_->eye_ideal.push_back(static_cast<float>(sign * convolve_at(fine_target_, dec, i)));
+      }
+      probe_->target = fine_target_;
+      probe_->equalizer_taps = fine_eq_ ? fine_eq_->taps() : std::vector<double>{};
+    }
     a.header_ok = header.has_value();
     if (header) {
       // The header names its own address; check it against the capture's track.
@@ -637,18 +650,34 @@ class TrackFramer {
       }
       a.cylinder = *cylinder_;
       a.head = *head_;
-      a.sector = sector;
-      a.lba = fmt_.lba(a.cylinder, a.head, a.sector);
       a.placed_by_position = true;
       a.notes.push_back(how);
-      finish_sector(a, d.coded, d.erasures, d.byte_reliability);
-      results_.push_back(std::move(a));
+      // The address seeds the descrambler, so a wrong placement cannot verify: try the
+      // implied sector first, then its neighbours; keep the implied one if none verifies.
+      SectorAttempt best;
+      bool have = false;
+      for (int delta : {0, -1, 1}) {
+        int sct = (sector + delta + fmt_.sectors_per_track) % fmt_.sectors_per_track;
+        SectorAttempt t = a;
+        t.sector = sct;
+        t.lba = fmt_.lba(t.cylinder, t.head, t.sector);
+        finish_sector(t, d.coded, d.erasures, d.byte_reliability);
+        if (delta != 0 && !results::is_verified(t.status)) continue;
+        if (delta != 0) t.notes.push_back("verified at the neighbouring address (position estimate off by one sector)");
+        if (!have || results::is_verified(t.status)) {
+          best = std::move(t);
+          have = true;
+        }
+        if (results::is_verified(best.status)) break;
+      }
+      results_.push_back(std::move(best));
     }
     deferred_.clear();
   }
 
  public:
   double capture_samples_per_bit_ = 0;
+  CaptureProbe* probe_ = nullptr;
 
  private:
   struct Anchor {
@@ -692,7 +721,8 @@ class TrackFramer {
 
 }  // namespace
 
-CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::LoadOptions& load_options) {
+CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::LoadOptions& load_options,
+                                     CaptureProbe* probe) {
   load::LoadOptions lo = load_options;
   load::CaptureReader reader = load::open_capture(capture.path, lo);
   const load::CaptureInfo& info = reader.info();
@@ -742,6 +772,11 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   timing::TimingLoop pll(tc);
 
   TrackFramer framer(fmt_, host_, settings_, cap, capture.path.filename().string());
+  framer.probe_ = probe;
+  if (probe) {
+    probe->sample_rate_hz = info.sample_rate_hz;
+    probe->bit_rate_hz = sum.bit_rate_hz;
+  }
   framer.capture_samples_per_bit_ = spb_capture;
 
   const size_t chunk = 1 << 16;
@@ -760,6 +795,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
     while (off < in.size()) {
       Progress p = pll.process(in.subspan(off), bits);
       off += p.consumed;
+      if (probe) pll.drain_trace(probe->pll_trace);
       for (size_t i = 0; i < p.produced; ++i) {
         auto idx = static_cast<int64_t>(std::llround(bits[i].position));
         uint8_t f = 0;
@@ -796,6 +832,10 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
 
   uint64_t total = 0;
   while (size_t n = reader.read(raw)) {
+    if (probe && probe->raw_samples.size() < probe->raw_samples_wanted) {
+      size_t k = std::min(n, probe->raw_samples_wanted - probe->raw_samples.size());
+      probe->raw_samples.insert(probe->raw_samples.end(), raw.begin(), raw.begin() + static_cast<long>(k));
+    }
     total += n;
     size_t off = 0;
     while (off < n) {
@@ -815,6 +855,11 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
     run_resampler({}, {}, true);
   }
   framer.finish();
+  if (probe) {
+    pll.drain_trace(probe->pll_trace);
+    // Trace positions are in resampled samples: give them in capture samples.
+    for (auto& t : probe->pll_trace) t.position = rs.input_position(0) + t.position * rs.ratio();
+  }
 
   sum.samples = total;
   sum.bits = framer.bits();

@@ -30,6 +30,7 @@
 #include "load/capture_reader.hpp"
 #include "pipeline/job.hpp"
 #include "results/sector_result.hpp"
+#include "timing/timing_loop.hpp"
 
 namespace salvor::pipeline {
 
@@ -50,6 +51,21 @@ struct DecodeSettings {
   int sync_tolerance = -1;                 // -1: the descriptor's
   bool erasure_search = true;              // reliability-guided erasures when plain RS fails
   std::optional<double> bit_rate_hz;       // overrides sidecar and descriptor
+  bool keep_channel_bits = false;          // fill SectorAttempt::channel_bits
+};
+
+// Optional look inside one capture's decode, for reports: what to keep, and what was kept.
+struct CaptureProbe {
+  std::optional<uint64_t> eye_lba;         // keep the equalized samples of this sector
+  size_t raw_samples_wanted = 0;           // keep this many capture samples from the start
+  // Kept:
+  std::vector<timing::TimingTracePoint> pll_trace;  // decimated PLL phase/frequency trace
+  std::vector<float> eye_samples;          // equalized samples from the header to the data end
+  std::vector<float> eye_ideal;            // target applied to the decided levels, same positions
+  std::vector<double> target;              // the fine equalizer's target
+  std::vector<double> equalizer_taps;      // its taps after that sector
+  std::vector<float> raw_samples;          // the first raw_samples_wanted capture samples
+  double sample_rate_hz = 0, bit_rate_hz = 0;
 };
 
 struct CaptureSummary {
@@ -80,7 +96,8 @@ class CaptureDecoder {
   CaptureDecoder(const format::TrackFormat& fmt, const detect::PluginHost& host,
                  const DecodeSettings& settings);
   // Throws salvor::Error(input) for an unreadable capture or one of another format.
-  CaptureResult decode(const JobCapture& capture, const load::LoadOptions& load_options = {});
+  CaptureResult decode(const JobCapture& capture, const load::LoadOptions& load_options = {},
+                       CaptureProbe* probe = nullptr);
 
  private:
   const format::TrackFormat& fmt_;

@@ -130,6 +130,16 @@ bool DecodeFolder::record(SectorAttempt attempt) {
   return true;
 }
 
+void DecodeFolder::append_log_line(const nlohmann::json& line) { new_log_.push_back(line.dump()); }
+
+void DecodeFolder::set_final(SectorAttempt attempt) {
+  if (attempt.lba >= final_.size())
+    throw_internal("sector result for lba " + std::to_string(attempt.lba) + " outside the image");
+  if (attempt.status != SectorStatus::missing && attempt.data.size() != static_cast<size_t>(geometry_.sector_bytes))
+    throw_internal("sector result for lba " + std::to_string(attempt.lba) + " carries no data");
+  final_[attempt.lba] = std::move(attempt);
+}
+
 std::string DecodeFolder::write(const FillPolicy& fill) {
   std::error_code ec;
   fs::create_directories(dir_, ec);

@@ -52,6 +52,16 @@ class DecodeFolder {
   nlohmann::json& run_info() { return run_; }  // the command fills it (versions, parameters, inputs)
   const std::filesystem::path& dir() const { return dir_; }
 
+  // For a merge of folders: the log lines read by open(), in file order.
+  const std::vector<std::string>& logged_lines() const { return old_log_; }
+  // For a merge: appends one log line as given (an attempt from another folder, tagged
+  // with where it came from) without changing any final result.
+  void append_log_line(const nlohmann::json& line);
+  // For a merge: sets a sector's final result as the caller decided it (including
+  // conflict), bypassing better_than. Throws internal if the lba is outside the image or
+  // a found attempt carries no sector_bytes of data.
+  void set_final(SectorAttempt attempt);
+
   // Writes all five files atomically (each temp + rename; run.json last, with the SHA-256
   // of the other four). Returns the SHA-256 of image.bin.
   std::string write(const FillPolicy& fill);

@@ -59,6 +59,9 @@ struct SectorAttempt {
 
   // The bytes (best guess when not verified). Not written to the log.
   std::vector<uint8_t> data;
+  // Detected channel bits from the first header bit to the last data bit, when the
+  // decoder was asked to keep them (corpus comparison counts bit errors before ECC).
+  std::vector<uint8_t> channel_bits;
 };
 
 nlohmann::json to_json(const SectorAttempt& a);

@@ -22,7 +22,8 @@ bool parse_command_line(const std::string& command, const std::string& synopsis,
     }
     po::notify(vm);
   } catch (const po::error& e) {
-    throw Error(ErrorKind::usage, "salvor " + command, std::string(e.what()) + " (see --help)");
+    // guarded() puts "salvor <command>: " in front of the message.
+    throw Error(ErrorKind::usage, "", std::string(e.what()) + " (see --help)");
   }
   return true;
 }

@@ -12,6 +12,11 @@
 
 namespace salvor::cli {
 // Subcommands (declared here, defined in cmd_<name>.cpp). Add a line to kCommands too.
+int run_inspect(const std::vector<std::string>& args);
+int run_plugins(const std::vector<std::string>& args);
+int run_decode(const std::vector<std::string>& args);
+int run_report(const std::vector<std::string>& args);
+int run_merge(const std::vector<std::string>& args);
 }  // namespace salvor::cli
 
 namespace {
@@ -19,7 +24,11 @@ namespace {
 using salvor::cli::Command;
 
 const Command kCommands[] = {
-    // {"inspect", "what is in a capture: rate, SNR, density, sectors seen", salvor::cli::run_inspect},
+    {"inspect", "what is in a capture: rate, SNR, density, sectors seen", salvor::cli::run_inspect},
+    {"decode", "decode captures or a manifest into a recovered image, map and log", salvor::cli::run_decode},
+    {"report", "a self-contained HTML report with plots of a decode folder", salvor::cli::run_report},
+    {"merge", "best result of every sector across decode folders of one drive", salvor::cli::run_merge},
+    {"plugins", "the detector plugins that can be loaded, and files refused", salvor::cli::run_plugins},
     {nullptr, nullptr, nullptr},
 };
 
