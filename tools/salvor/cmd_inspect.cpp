@@ -221,7 +221,7 @@ int run_inspect(const std::vector<std::string>& args) {
       bc.sample_rate_hz = info.sample_rate_hz;
       const BitRateEstimate est = estimate_bit_rate(head, bc);
       s.nominal_bit_rate_hz = est.bit_rate_hz;
-      bit_rate_source = "estimated from the preamble line";
+      bit_rate_source = "preamble line estimate";
     }
     if (!(s.nominal_bit_rate_hz > 0)) throw_input(path, "no bit rate known and none could be estimated; give --bit-rate");
     if (s.sample_rate_hz / s.nominal_bit_rate_hz < 1.2) {
@@ -312,7 +312,8 @@ int run_inspect(const std::vector<std::string>& args) {
       j["snr_db"] = number_or_null(r.fit.valid, r.fit.snr_db);
       j["pw50_bits"] = number_or_null(r.fit.valid, r.fit.pw50_bits);
       j["fit_windows"] = r.fit.windows;
-      j["preambles_found"] = r.preambles.size();
+      // preambles are counted on the bit samples by the sync search (needs the format)
+      j["preambles_found"] = fmt ? json(r.preambles.size()) : json(nullptr);
       json pre = json::array();
       for (const auto& p : r.preambles) pre.push_back({{"sample", p.position}});
       j["preambles"] = pre;
@@ -325,6 +326,7 @@ int run_inspect(const std::vector<std::string>& args) {
                       {"correlation", h.correlation},
                       {"locked", h.locked},
                       {"frequency_offset_ppm", h.rate_offset * 1e6},
+                      {"frequency_offset_bits", h.rate_bits},  // tracked bits averaged (0: sync window only)
                       {"slip_bits", h.slip_bits}});
       }
       j["sync_marks"] = sm;
@@ -355,7 +357,7 @@ int run_inspect(const std::vector<std::string>& args) {
     rows.push_back({"SNR", r.fit.valid ? fmt_num("%.1f dB", r.fit.snr_db) + "  (peak / rms noise in the bit-rate Nyquist band)"
                                        : std::string("- (needs sync marks)")});
     rows.push_back({"PW50", r.fit.valid ? fmt_num("%.2f bit periods", r.fit.pw50_bits) : std::string("- (needs sync marks)")});
-    rows.push_back({"preambles found", std::to_string(r.preambles.size())});
+    rows.push_back({"preambles found", fmt ? std::to_string(r.preambles.size()) : std::string("- (needs a track format)")});
     rows.push_back({"sync marks found", fmt ? std::to_string(r.hits.size()) + " (" + std::to_string(locked_hits) + " with the PLL locked)"
                                             : std::string("- (needs a track format)")});
     rows.push_back({"PLL locked", fmt_num("%.1f %% of bits", 100 * locked_fraction) + ", " +
