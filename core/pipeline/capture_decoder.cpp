@@ -5,6 +5,8 @@
 #include <deque>
 #include <map>
 #include <numeric>
+#include <cstdio>
+#include <cstdlib>
 
 #include "common/error.hpp"
 #include "condition/conditioner.hpp"
@@ -354,6 +356,7 @@ class TrackFramer {
     double corr = 0;
     for (size_t i = k0; i < std::min(L, k0 + known_len_); ++i) corr += cy[i] * convolve_at(coarse_target_, lv, i);
     const int level_before = corr < 0 ? -1 : 1;
+    if (std::getenv("SALVOR_DBG")) std::fprintf(stderr, "window %llu corr %.1f\n", (unsigned long long)w0, corr);
     if (corr < 0)
       for (auto& v : lv) v = static_cast<int8_t>(-v);
 
@@ -369,16 +372,16 @@ class TrackFramer {
     if (fine_spec_.kind == equalize::TargetKind::generalized && !fine_eq_) design_gpr(x, lv, er);
     if (fine_eq_) {
       // LMS over the window on the training levels, then equalize with the trained taps.
+      // The outputs of the last pass are kept as they were made, while the taps were still
+      // adapting: they follow a timing phase or gain that drifts within the sector (after
+      // a servo wedge the PLL may still be settling), which frozen taps would not.
       std::vector<float> tmp(L + s_.equalizer_taps + 8);
       for (int ep = 0; ep < std::max(1, s_.training_epochs); ++ep) {
         fine_eq_->restart_span();
-        fine_eq_->train(x, lv, std::span<float>(tmp.data(), L), er);
-        fine_eq_->flush(std::span<float>(tmp.data() + L, s_.equalizer_taps + 8));
+        Progress p = fine_eq_->train(x, lv, std::span<float>(tmp.data(), L), er);
+        size_t f = fine_eq_->flush(std::span<float>(tmp.data() + p.produced, s_.equalizer_taps + 8));
+        if (p.produced + f < L) throw_internal("equalizer produced fewer outputs than inputs");
       }
-      fine_eq_->restart_span();
-      Progress p = fine_eq_->process(x, std::span<float>(tmp.data(), L), er);
-      size_t f = fine_eq_->flush(std::span<float>(tmp.data() + p.produced, s_.equalizer_taps + 8));
-      if (p.produced + f < L) throw_internal("equalizer produced fewer outputs than inputs");
       std::copy(tmp.begin(), tmp.begin() + static_cast<long>(L), y.begin());
     } else {
       y = x;  // unequalized (peak detection)
