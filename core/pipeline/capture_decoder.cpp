@@ -1,10 +1,12 @@
 #include "pipeline/capture_decoder.hpp"
+#include "pipeline/sector_decode.hpp"
 
 #include <algorithm>
 #include <cmath>
 #include <deque>
 #include <map>
 #include <numeric>
+#include <filesystem>
 #include <cstdio>
 #include <cstdlib>
 
@@ -28,9 +30,6 @@ namespace {
 using results::SectorAttempt;
 using results::SectorStatus;
 
-// Below this |LLR| a bit counts as weak (P(error) ~ 1/(1+e^2) = 12 %): the byte holding
-// it is a candidate erasure and counts towards the confidence's weak share.
-constexpr float kWeakLlr = 2.0f;
 
 // T-spaced response of the PLL's samples to one NRZ level under a Lorentzian channel:
 // a level change between bits k-1 and k peaks at sample k, so level a_n contributes
@@ -102,9 +101,7 @@ struct RingEntry {
 // A sector whose header did not verify: kept for placement at the end of the capture.
 struct Deferred {
   SectorAttempt attempt;
-  std::vector<uint8_t> coded;         // coded bytes from the detector
-  std::vector<uint8_t> erasures;      // 8/9 invalid words and conditioning flags
-  std::vector<float> byte_reliability;
+  SectorBytes bytes;  // the data as detected, decoded once the address is known
 };
 
 }  // namespace
@@ -120,6 +117,7 @@ nlohmann::json CaptureSummary::to_json() const {
           {"revolution", revolution},
           {"bits", bits},
           {"sync_marks", sync_marks},
+          {"truncated_sectors", truncated_sectors},
           {"lock_losses", lock_losses},
           {"cycle_slips", cycle_slips},
           {"rate_offset_ppm", rate_offset_ppm},
@@ -233,6 +231,7 @@ class TrackFramer {
   std::vector<SectorAttempt> take_results() { return std::move(results_); }
   uint64_t bits() const { return count_; }
   uint64_t sync_marks() const { return sync_marks_; }
+  uint64_t truncated() const { return truncated_; }
   std::vector<double> fine_taps() const { return fine_eq_ ? fine_eq_->taps() : std::vector<double>{}; }
   const std::vector<double>& fine_target() const { return fine_target_; }
   std::string fine_target_name() const { return fine_spec_.name; }
@@ -444,45 +443,21 @@ class TrackFramer {
     }
     // Data bytes, their reliabilities and erasure hints.
     const size_t kd = ks + header_bits_;
-    const size_t nbytes = static_cast<size_t>(fmt_.coded_bytes);
-    std::vector<uint8_t> coded(nbytes, 0), cer(nbytes, 0);
-    std::vector<float> brel(nbytes, 0.0f);
-    size_t present = kd < L ? std::min(nbytes, (L - kd) / 9) : 0;
-    if (present > 0) code.decode_bits(std::span<const uint8_t>(bits.data() + kd, present * 9),
-                                      std::span<uint8_t>(coded.data(), present),
-                                      std::span<uint8_t>(cer.data(), present));
-    double rel_sum = 0;
-    size_t rel_n = 0, weak_bytes = 0;
-    float rel_min = 1e30f;
-    for (size_t b = 0; b < nbytes; ++b) {
-      if (b >= present) {
-        cer[b] = 1;
-        ++weak_bytes;
-        continue;
-      }
-      float m = 1e30f;
-      bool flagged = false;
-      for (size_t j = 0; j < 9; ++j) {
-        size_t i = kd + b * 9 + j;
-        float r = std::fabs(llr[i]);
-        m = std::min(m, r);
-        rel_sum += r;
-        ++rel_n;
-        flagged |= er[i] != 0;
-      }
-      brel[b] = m;
-      rel_min = std::min(rel_min, m);
-      if (flagged) cer[b] = 1;
-      if (m < kWeakLlr || cer[b]) ++weak_bytes;
+    const size_t dn = kd < L ? std::min(data_bits_, L - kd) : 0;
+    SectorBytes sb = sector_bytes_from_bits(fmt_, std::span<const uint8_t>(bits.data() + kd, dn),
+                                            std::span<const float>(llr.data() + kd, dn),
+                                            std::span<const uint8_t>(er.data() + kd, dn));
+    // The capture ended inside this sector with more bytes missing than the code can
+    // restore: no attempt (the next revolution's capture holds it whole).
+    if (sb.missing_bytes > static_cast<size_t>(fmt_.rs.parity_symbols * fmt_.rs.interleave)) {
+      ++truncated_;
+      return;
     }
-    a.reliability_min = rel_n ? rel_min : 0.0f;
-    a.reliability_mean = rel_n ? static_cast<float>(rel_sum / rel_n) : 0.0f;
-    a.low_reliability_fraction = static_cast<double>(weak_bytes) / static_cast<double>(nbytes);
-    if (present < nbytes) a.notes.push_back("capture ends inside the sector: " + std::to_string(nbytes - present) + " bytes missing");
 
     if (s_.keep_channel_bits) {
       size_t e = std::min(L, kd + data_bits_);
       a.channel_bits.assign(bits.begin() + static_cast<long>(ks), bits.begin() + static_cast<long>(e));
+      a.channel_llr.assign(llr.begin() + static_cast<long>(ks), llr.begin() + static_cast<long>(e));
     }
     if (probe_ && header && probe_->eye_lba && *probe_->eye_lba == header->lba && probe_->eye_samples.empty() &&
         !fine_target_.empty()) {
@@ -525,73 +500,19 @@ class TrackFramer {
     }
     if (a.header_ok) {
       anchors_.push_back({a.capture_position, a.sector});
-      finish_sector(a, coded, cer, brel);
+      decode_sector_data(fmt_, decode_options(), sb, a);
       results_.push_back(std::move(a));
     } else {
       a.notes.push_back("header unreadable");
-      deferred_.push_back(Deferred{std::move(a), std::move(coded), std::move(cer), std::move(brel)});
+      deferred_.push_back(Deferred{std::move(a), std::move(sb)});
     }
   }
 
-  // RS + CRC for a placed sector, with reliability-guided erasures when plain decoding fails.
-  void finish_sector(SectorAttempt& a, const std::vector<uint8_t>& coded, const std::vector<uint8_t>& cer,
-                     const std::vector<float>& brel) {
-    const int I = fmt_.rs.interleave;
-    const int parity = fmt_.rs.parity_symbols;
-    auto count_per_interleave = [&](const std::vector<uint8_t>& flags) {
-      std::vector<int> c(static_cast<size_t>(I), 0);
-      for (size_t t = 0; t < flags.size(); ++t)
-        if (flags[t]) ++c[t % static_cast<size_t>(I)];
-      return c;
-    };
-    std::vector<uint8_t> flags = cer;
-    // Too many hinted erasures in one codeword make the decode impossible: keep the
-    // least reliable `parity` of them.
-    auto cap_flags = [&](std::vector<uint8_t>& f) {
-      for (int i = 0; i < I; ++i) {
-        std::vector<size_t> pos;
-        for (size_t t = static_cast<size_t>(i); t < f.size(); t += static_cast<size_t>(I))
-          if (f[t]) pos.push_back(t);
-        if (static_cast<int>(pos.size()) <= parity) continue;
-        std::sort(pos.begin(), pos.end(), [&](size_t p, size_t q) { return brel[p] < brel[q]; });
-        for (size_t j = static_cast<size_t>(parity); j < pos.size(); ++j) f[pos[j]] = 0;
-      }
-    };
-    cap_flags(flags);
-    format::PayloadDecode d = format::decode_sector_payload(fmt_, static_cast<uint32_t>(a.lba), coded, flags);
-    std::vector<uint8_t> used = flags;
-    if (!d.verified && s_.erasure_search) {
-      // Erase the r least reliable bytes of every codeword, r growing, until the CRC checks.
-      std::vector<std::vector<size_t>> order(static_cast<size_t>(I));
-      for (size_t t = 0; t < coded.size(); ++t) order[t % static_cast<size_t>(I)].push_back(t);
-      for (auto& o : order)
-        std::stable_sort(o.begin(), o.end(), [&](size_t p, size_t q) { return brel[p] < brel[q]; });
-      for (int r = 2; r <= parity; r += 2) {
-        std::vector<uint8_t> f = cer;
-        for (auto& o : order)
-          for (int j = 0; j < r && j < static_cast<int>(o.size()); ++j) f[o[static_cast<size_t>(j)]] = 1;
-        cap_flags(f);
-        format::PayloadDecode t = format::decode_sector_payload(fmt_, static_cast<uint32_t>(a.lba), coded, f);
-        if (t.verified) {
-          d = std::move(t);
-          used = f;
-          a.notes.push_back("verified with the " + std::to_string(r) + " least reliable bytes of each codeword erased");
-          break;
-        }
-      }
-    }
-    a.rs_corrected = d.corrected_per_interleave;
-    a.rs_erasures = count_per_interleave(used);
-    a.crc = d.crc_ok ? "pass" : "fail";
-    a.data = d.user_data;
-    if (d.verified) {
-      a.status = d.rs_corrected > 0 ? SectorStatus::corrected : SectorStatus::good;
-    } else {
-      a.status = SectorStatus::failed;
-      if (d.rs_failures > 0) a.notes.push_back(std::to_string(d.rs_failures) + " codeword(s) uncorrectable");
-      else a.notes.push_back("RS decoded but the CRC-32 failed: rejected");
-    }
-    a.confidence = results::sector_confidence(a);
+  SectorDecodeOptions decode_options() const {
+    SectorDecodeOptions o;
+    o.erasure_search = s_.erasure_search;
+    o.chase_bits = s_.chase_bits;
+    return o;
   }
 
   // Places sectors whose header failed, from their distance to sectors whose header
@@ -664,7 +585,7 @@ class TrackFramer {
         SectorAttempt t = a;
         t.sector = sct;
         t.lba = fmt_.lba(t.cylinder, t.head, t.sector);
-        finish_sector(t, d.coded, d.erasures, d.byte_reliability);
+        decode_sector_data(fmt_, decode_options(), d.bytes, t);
         if (delta != 0 && !results::is_verified(t.status)) continue;
         if (delta != 0) t.notes.push_back("verified at the neighbouring address (position estimate off by one sector)");
         if (!have || results::is_verified(t.status)) {
@@ -711,6 +632,7 @@ class TrackFramer {
   std::vector<frame::SyncHit> hits_pending_;
   std::optional<uint64_t> last_sector_end_;
   uint64_t sync_marks_ = 0;
+  uint64_t truncated_ = 0;  // sectors cut off by the end of the capture
 
   equalize::TargetSpec fine_spec_;
   std::vector<double> fine_target_;
@@ -740,7 +662,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
 
   CaptureResult result;
   CaptureSummary& sum = result.summary;
-  sum.path = capture.path.string();
+  sum.path = std::filesystem::absolute(capture.path).lexically_normal().string();
   sum.sample_rate_hz = info.sample_rate_hz;
   sum.cylinder = cap.cylinder.value_or(-1);
   sum.head = cap.head.value_or(-1);
@@ -867,6 +789,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   sum.samples = total;
   sum.bits = framer.bits();
   sum.sync_marks = framer.sync_marks();
+  sum.truncated_sectors = framer.truncated();
   sum.lock_losses = pll.stats().lock_losses;
   sum.cycle_slips = pll.stats().cycle_slips;
   sum.rate_offset_ppm = pll.stats().rate_offset * 1e6;

@@ -51,7 +51,8 @@ struct DecodeSettings {
   int sync_tolerance = -1;                 // -1: the descriptor's
   bool erasure_search = true;              // reliability-guided erasures when plain RS fails
   std::optional<double> bit_rate_hz;       // overrides sidecar and descriptor
-  bool keep_channel_bits = false;          // fill SectorAttempt::channel_bits
+  int chase_bits = 0;                      // Chase-style search over this many weak bits (0: off)
+  bool keep_channel_bits = false;          // fill SectorAttempt::channel_bits and channel_llr
 };
 
 // Optional look inside one capture's decode, for reports: what to keep, and what was kept.
@@ -77,6 +78,7 @@ struct CaptureSummary {
   int cylinder = -1, head = -1, revolution = -1;
   uint64_t bits = 0;
   uint64_t sync_marks = 0;
+  uint64_t truncated_sectors = 0;          // cut off by the end of the capture (not attempted)
   uint64_t lock_losses = 0, cycle_slips = 0;
   double rate_offset_ppm = 0;
   double clipped_fraction = 0;

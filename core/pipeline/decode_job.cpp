@@ -8,6 +8,7 @@
 
 #include "common/error.hpp"
 #include "common/sha256.hpp"
+#include "load/capture_reader.hpp"
 
 namespace salvor::pipeline {
 
@@ -17,6 +18,11 @@ format::TrackFormat resolve_job_format(const Job& job, const std::string& format
   if (!format_option.empty()) return format::load_track_format(format::find_track_format(format_option));
   if (!job.format_file.empty()) return format::load_track_format(job.format_file);
   if (!job.format.empty()) return format::load_track_format(format::find_track_format(job.format));
+  // Captures named directly: their sidecar says which format they are in.
+  if (!job.captures.empty()) {
+    load::CaptureReader r = load::open_capture(job.captures.front().path);
+    if (!r.info().format.empty()) return format::load_track_format(format::find_track_format(r.info().format));
+  }
   throw_usage("decode", "the inputs do not say which track format they are in: give --format");
 }
 
@@ -24,13 +30,13 @@ results::Geometry geometry_of(const format::TrackFormat& fmt) {
   return results::Geometry{fmt.heads, fmt.cylinders, fmt.sectors_per_track, fmt.user_bytes};
 }
 
-JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detect::PluginHost& host,
-                     const DecodeSettings& settings, results::DecodeFolder& folder,
-                     const JobRunOptions& options) {
+std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackFormat& fmt,
+                                            const detect::PluginHost& host, const DecodeSettings& settings,
+                                            const JobRunOptions& options, std::vector<results::SectorAttempt>& out) {
   const size_t n = job.captures.size();
   std::vector<CaptureResult> results(n);
   unsigned threads = options.threads ? options.threads : std::max(1u, std::thread::hardware_concurrency());
-  threads = static_cast<unsigned>(std::min<size_t>(threads, n));
+  threads = static_cast<unsigned>(std::max<size_t>(1, std::min<size_t>(threads, n)));
   std::atomic<size_t> next{0};
   std::atomic<bool> failed{false};
   std::exception_ptr first_error;
@@ -60,13 +66,23 @@ JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detec
   for (auto& t : pool) t.join();
   if (first_error) std::rethrow_exception(first_error);
 
-  JobRunResult out;
+  std::vector<CaptureSummary> summaries;
   for (auto& r : results) {
-    for (auto& a : r.sectors) {
-      folder.record(std::move(a));
-      ++out.attempts;
-    }
-    out.captures.push_back(std::move(r.summary));
+    for (auto& a : r.sectors) out.push_back(std::move(a));
+    summaries.push_back(std::move(r.summary));
+  }
+  return summaries;
+}
+
+JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detect::PluginHost& host,
+                     const DecodeSettings& settings, results::DecodeFolder& folder,
+                     const JobRunOptions& options) {
+  std::vector<results::SectorAttempt> attempts;
+  JobRunResult out;
+  out.captures = run_job_collect(job, fmt, host, settings, options, attempts);
+  for (auto& a : attempts) {
+    folder.record(std::move(a));
+    ++out.attempts;
   }
   return out;
 }
@@ -112,7 +128,8 @@ nlohmann::json settings_json(const DecodeSettings& s) {
                       {"equalizer_step", s.equalizer_step},
                       {"training_epochs", s.training_epochs},
                       {"sync_tolerance", s.sync_tolerance},
-                      {"erasure_search", s.erasure_search}};
+                      {"erasure_search", s.erasure_search},
+                      {"chase_bits", s.chase_bits}};
   if (s.bit_rate_hz) j["bit_rate_hz"] = *s.bit_rate_hz;
   return j;
 }

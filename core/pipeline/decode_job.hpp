@@ -38,6 +38,12 @@ JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detec
                      const DecodeSettings& settings, results::DecodeFolder& folder,
                      const JobRunOptions& options);
 
+// Decodes all captures of `job` and returns every attempt in job order (with channel
+// bits when the settings keep them), and the capture summaries.
+std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackFormat& fmt,
+                                            const detect::PluginHost& host, const DecodeSettings& settings,
+                                            const JobRunOptions& options, std::vector<results::SectorAttempt>& out);
+
 // The inputs of a job with their SHA-256 (captures, sidecars, manifests, descriptor).
 nlohmann::json hash_inputs(const Job& job, const format::TrackFormat& fmt);
 

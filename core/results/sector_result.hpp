@@ -62,6 +62,7 @@ struct SectorAttempt {
   // Detected channel bits from the first header bit to the last data bit, when the
   // decoder was asked to keep them (corpus comparison counts bit errors before ECC).
   std::vector<uint8_t> channel_bits;
+  std::vector<float> channel_llr;  // their LLRs, same positions
 };
 
 nlohmann::json to_json(const SectorAttempt& a);

@@ -3,6 +3,7 @@
 // outputs, compare with the simulator's ground truth.
 
 #include <sys/wait.h>
+#include <unistd.h>
 
 #include <array>
 #include <cstdio>
@@ -62,13 +63,20 @@ inline std::vector<nlohmann::json> read_jsonl(const fs::path& p) {
   return v;
 }
 
-// Synthesizes a scenario once per test binary run (the simulator is deterministic).
+// Synthesizes a scenario once (the simulator is deterministic). Tests may run in
+// parallel processes, so each synthesizes into a folder of its own and renames it into
+// place; whoever renames first wins and the others use that folder.
 inline fs::path synth(const std::string& scenario, const std::string& extra, const std::string& tag) {
   fs::path d = fs::temp_directory_path() / ("salvor-e2e-synth-" + tag);
   if (fs::exists(d / "manifest.json")) return d;
-  fs::remove_all(d);
-  RunResult r = run(bin("salvor-synth") + " --scenario " + scenario + " --out " + d.string() + " -q " + extra);
+  fs::path mine = fs::temp_directory_path() / ("salvor-e2e-synth-" + tag + ".tmp-" + std::to_string(::getpid()));
+  fs::remove_all(mine);
+  RunResult r = run(bin("salvor-synth") + " --scenario " + scenario + " --out " + mine.string() + " -q " + extra);
   if (r.exit_code != 0) throw std::runtime_error("salvor-synth failed: " + r.out);
+  std::error_code ec;
+  fs::rename(mine, d, ec);  // fails if another process got there first
+  if (ec) fs::remove_all(mine);
+  if (!fs::exists(d / "manifest.json")) throw std::runtime_error("no synth output in " + d.string());
   return d;
 }
 

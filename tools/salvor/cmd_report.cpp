@@ -2,9 +2,13 @@
 // map, SNR and confidence per track, and (re-decoding the one capture that holds the
 // chosen sector) its eye diagram, the PLL trace, the equalizer and the capture spectrum.
 
+#include <sys/stat.h>
+
 #include <chrono>
 #include <ctime>
 #include <filesystem>
+#include <fstream>
+#include <optional>
 #include <iostream>
 
 #include "cli_common.hpp"
@@ -25,11 +29,9 @@ namespace {
 constexpr size_t kSpectrumSamples = size_t{1} << 20;
 
 std::string file_time_utc(const fs::path& p) {
-  std::error_code ec;
-  auto ft = fs::last_write_time(p, ec);
-  if (ec) return "(date not recorded)";
-  auto sys = std::chrono::clock_cast<std::chrono::system_clock>(ft);
-  std::time_t t = std::chrono::system_clock::to_time_t(sys);
+  struct stat st {};
+  if (::stat(p.c_str(), &st) != 0) return "(date not recorded)";
+  std::time_t t = st.st_mtime;
   std::tm tm{};
   gmtime_r(&t, &tm);
   char buf[48];
@@ -37,15 +39,57 @@ std::string file_time_utc(const fs::path& p) {
   return std::string(buf) + " (run.json written)";
 }
 
-// The default sector: the first unverified one that was found, else the first sector.
+// Streams sectors.jsonl (already validated by DecodeFolder::open) and calls `fn` for
+// every attempt; memory does not grow with the log.
+template <typename Fn>
+void for_each_logged_attempt(const fs::path& dir, Fn fn) {
+  std::ifstream log(dir / "sectors.jsonl");
+  std::string line;
+  while (std::getline(log, line))
+    if (!line.empty()) fn(results::attempt_from_json(nlohmann::json::parse(line)));
+}
+
+// An attempt that read the sector's own header is one the decoder can show the eye of
+// (a sector placed by position has no header to recognise it by).
+bool eye_possible(const results::SectorAttempt& a) { return a.header_ok && !a.placed_by_position && !a.capture.empty(); }
+
+// The default sector: the first unverified one that was found, preferring one that some
+// attempt read the header of; else the first sector.
 uint64_t default_sector(const results::DecodeFolder& f, std::string& why) {
+  auto unverified_found = [](const results::SectorAttempt& a) {
+    return a.status == results::SectorStatus::failed || a.status == results::SectorStatus::conflict;
+  };
+  std::vector<bool> header_read(f.final_attempts().size(), false);
+  for_each_logged_attempt(f.dir(), [&](const results::SectorAttempt& a) {
+    if (a.lba < header_read.size() && eye_possible(a)) header_read[a.lba] = true;
+  });
   for (const auto& a : f.final_attempts())
-    if (a.status == results::SectorStatus::failed || a.status == results::SectorStatus::conflict) {
+    if (unverified_found(a) && header_read[a.lba]) {
+      why = "the first unverified sector that was found with a readable header";
+      return a.lba;
+    }
+  for (const auto& a : f.final_attempts())
+    if (unverified_found(a)) {
       why = "the first unverified sector that was found";
       return a.lba;
     }
   why = "no sector was found but unverified, so the first sector";
   return 0;
+}
+
+// Which attempt to re-decode for the waveform plots: the final one if it read its header,
+// else the first logged attempt that did (another revolution), else the final one.
+results::SectorAttempt attempt_to_probe(const results::DecodeFolder& f, uint64_t lba, std::string& note) {
+  const results::SectorAttempt& fin = f.final_attempt(lba);
+  if (eye_possible(fin)) return fin;
+  std::optional<results::SectorAttempt> other;
+  for_each_logged_attempt(f.dir(), [&](const results::SectorAttempt& a) {
+    if (!other && a.lba == lba && eye_possible(a)) other = a;
+  });
+  if (!other) return fin;
+  note = "; the waveform plots use the attempt in " + fs::path(other->capture).filename().string() +
+         " (its header was read; the final attempt's was not)";
+  return *other;
 }
 
 }  // namespace
@@ -92,7 +136,11 @@ int run_report(const std::vector<std::string>& args) {
       wave.why_not = "not asked for (--no-waveform)";
     } else {
       // A changed capture throws (exit 3); a missing one is said in the page.
-      wave = probe_sector_capture(dir, run, folder.final_attempt(in.eye_lba), kSpectrumSamples);
+      std::string which;
+      results::SectorAttempt probe_attempt = attempt_to_probe(folder, in.eye_lba, which);
+      in.eye_choice += which;
+      wave = probe_sector_capture(dir, run, probe_attempt, kSpectrumSamples);
+      wave.probed_position = probe_attempt.capture_position;
       if (!wave.available) std::cerr << "salvor report: no waveform plots: " << wave.why_not << "\n";
     }
     in.waveform = &wave;

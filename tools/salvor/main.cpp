@@ -15,8 +15,10 @@ namespace salvor::cli {
 int run_inspect(const std::vector<std::string>& args);
 int run_plugins(const std::vector<std::string>& args);
 int run_decode(const std::vector<std::string>& args);
+int run_retry(const std::vector<std::string>& args);
 int run_report(const std::vector<std::string>& args);
 int run_merge(const std::vector<std::string>& args);
+int run_compare(const std::vector<std::string>& args);
 }  // namespace salvor::cli
 
 namespace {
@@ -28,6 +30,8 @@ const Command kCommands[] = {
     {"decode", "decode captures or a manifest into a recovered image, map and log", salvor::cli::run_decode},
     {"report", "a self-contained HTML report with plots of a decode folder", salvor::cli::run_report},
     {"merge", "best result of every sector across decode folders of one drive", salvor::cli::run_merge},
+    {"compare", "detectors side by side on a corpus with ground truth: tables and plots", salvor::cli::run_compare},
+    {"retry", "re-decode what is not verified with other detectors and settings", salvor::cli::run_retry},
     {"plugins", "the detector plugins that can be loaded, and files refused", salvor::cli::run_plugins},
     {nullptr, nullptr, nullptr},
 };

@@ -57,10 +57,22 @@ figcaption { font-size: 12.5px; color: #555; margin-top: 3px; max-width: 900px; 
 .scroll { overflow-x: auto; }
 )css";
 
+plot::Axis axis(std::string label) {
+  plot::Axis a;
+  a.label = std::move(label);
+  return a;
+}
+plot::Axis axis(std::string label, double lo, double hi) {
+  plot::Axis a = axis(std::move(label));
+  a.min = lo;
+  a.max = hi;
+  return a;
+}
+
 std::string status_badge(SectorStatus s) {
   std::string colour = results::status_colour(s);
   // Dark text on the light colours so every badge stays readable.
-  bool light = s == SectorStatus::good || s == SectorStatus::corrected || s == SectorStatus::missing;
+  bool light = s == SectorStatus::corrected || s == SectorStatus::failed || s == SectorStatus::conflict;
   return "<span class=\"badge\" style=\"background:" + colour + (light ? ";color:#111" : "") + "\">" + results::to_string(s) + "</span>";
 }
 
@@ -191,9 +203,11 @@ void tracks_section(std::ostringstream& o, const ReportInput& in, ReportSummary&
   }
   const bool few = points <= 60;
   const std::string xlabel = g.heads > 1 ? "track (cylinder × " + std::to_string(g.heads) + " + head)" : "track (cylinder)";
-  plot::XYPlot ps({"plot-track-snr", "SNR per track", 980, 260, {xlabel}, {"median SNR (dB)"}});
+  // The x range covers every track, so tracks without data show as gaps, not as a zoom.
+  const plot::Axis xaxis = axis(xlabel, -0.5, static_cast<double>(tracks) - 0.5);
+  plot::XYPlot ps({"plot-track-snr", "SNR per track", 980, 260, xaxis, axis("median SNR (dB)")});
   if (few) { auto m = s_snr; m.name = ""; m.style = plot::SeriesStyle::markers; ps.add(s_snr); ps.add(m); } else ps.add(s_snr);
-  plot::XYPlot pc({"plot-track-confidence", "confidence per track", 980, 260, {xlabel}, {"confidence", false, 0.0, 1.02}});
+  plot::XYPlot pc({"plot-track-confidence", "confidence per track", 980, 260, xaxis, axis("confidence", 0.0, 1.02)});
   pc.add_horizontal({0.5, "verified above 0.5", "#777777", true});
   if (few) {
     auto a = s_mean; a.name = ""; a.style = plot::SeriesStyle::markers;
@@ -222,8 +236,8 @@ void eye_section(std::ostringstream& o, const ReportInput& in, ReportSummary& su
     o << note("No eye diagram: " + why + ".");
     sum.notes.push_back("eye: " + why);
   } else if (w->probe.eye_samples.size() < 64) {
-    std::string why = w->capture.same_sector ? "the re-decode of the capture did not reach this sector's data (no sync mark or header found)"
-                                             : "the sector was not found in any capture; the track's capture is shown below";
+    std::string why = w->capture.same_sector ? "the re-decode of the capture did not read this sector's header, and the decoder keeps the equalized samples only of a sector whose header verified"
+                                             : "no capture listed in run.json holds this sector; the plots below show a capture of its track";
     o << note("No eye diagram: " + why + ".");
     sum.notes.push_back("eye: " + why);
   } else {
@@ -241,8 +255,8 @@ void eye_section(std::ostringstream& o, const ReportInput& in, ReportSummary& su
     dc.title = "equalized samples over two bit periods";
     dc.width = 980;
     dc.height = 380;
-    dc.x = {"time from the bit instant (bit periods)", false, -1.0, 1.0};
-    dc.y = {"equalized sample", false, lo - pad, hi + pad};
+    dc.x = axis("time from the bit instant (bit periods)", -1.0, 1.0);
+    dc.y = axis("equalized sample", lo - pad, hi + pad);
     dc.columns = 240;
     dc.rows = 140;
     plot::DensityPlot eye(dc);
@@ -256,8 +270,8 @@ void eye_section(std::ostringstream& o, const ReportInput& in, ReportSummary& su
     for (size_t i = 0; i < m; ++i) err += (y[i] - ideal[i]) * (y[i] - ideal[i]);
     double rms = m ? std::sqrt(err / static_cast<double>(m)) : 0;
     std::string cap = std::to_string(traces) + " traces of the sector's " + std::to_string(y.size()) +
-                      " bit-spaced samples (header to end of data), interpolated between bit instants with a windowed sinc; shade = log of the count. "
-                      "Dashed lines: the target levels (" + std::to_string(levels.size()) + " distinct, the target " +
+                      " bit-spaced samples (header to end of data), interpolated between bit instants with a windowed sinc; "
+                      "shade = square root of the count. Dashed lines: the target levels (" + std::to_string(levels.size()) + " distinct, the target " +
                       xml_escape(w->target_name.empty() ? std::string("of the detector") : w->target_name) +
                       " applied to the decided bits)" + (draw_levels ? "" : " — too many to draw") + ". RMS deviation of the samples at the bit instants from their ideal level: " +
                       format_number(rms, 3) + ".";
@@ -292,27 +306,28 @@ void pll_section(std::ostringstream& o, const ReportInput& in, ReportSummary& su
     phase.x.push_back(x);
     phase.y.push_back(p);
   }
-  plot::XYPlot pr({"plot-pll-rate", "bit-rate offset the loop tracked", 980, 240, {"channel bit"}, {"rate offset (ppm)"}});
-  plot::XYPlot pp({"plot-pll-phase", "timing error detector output", 980, 240, {"channel bit"}, {"phase error rms (bit periods)"}});
+  plot::XYPlot pr({"plot-pll-rate", "bit-rate offset the loop tracked", 980, 240, axis("channel bit"), axis("rate offset (ppm)")});
+  plot::XYPlot pp({"plot-pll-phase", "timing error detector output", 980, 240, axis("channel bit"), axis("phase error rms (bit periods)")});
   pr.add(rate);
   pp.add(phase);
   std::string where;
-  if (w->capture.same_sector && sec.capture_position >= 0) {
+  const double sync_pos = w->probed_position >= 0 ? w->probed_position : sec.capture_position;
+  if (w->capture.same_sector && sync_pos >= 0) {
     // The bit at the sector's sync mark, from the trace's position-to-bit mapping.
-    auto it = std::lower_bound(tr.begin(), tr.end(), sec.capture_position,
+    auto it = std::lower_bound(tr.begin(), tr.end(), sync_pos,
                                [](const timing::TimingTracePoint& p, double pos) { return p.position < pos; });
     if (it != tr.end()) {
       double b0 = static_cast<double>(it->bit);
       if (it != tr.begin()) {
         auto prev = std::prev(it);
-        double f = (sec.capture_position - prev->position) / std::max(1e-9, it->position - prev->position);
+        double f = (sync_pos - prev->position) / std::max(1e-9, it->position - prev->position);
         b0 = static_cast<double>(prev->bit) + f * static_cast<double>(it->bit - prev->bit);
       }
       double len = std::max<double>(static_cast<double>(w->probe.eye_samples.size()), 0.002 * static_cast<double>(tr.back().bit));
       pr.add_band({b0, b0 + len, "sector " + std::to_string(in.eye_lba)});
       pp.add_band({b0, b0 + len, "sector " + std::to_string(in.eye_lba)});
       where = " The shaded band is sector " + std::to_string(in.eye_lba) + " (from its sync mark at capture sample " +
-              format_number(sec.capture_position, 9) + ").";
+              std::to_string(std::llround(sync_pos)) + ").";
     }
   }
   uint64_t lock = 0;
@@ -352,10 +367,10 @@ void equalizer_section(std::ostringstream& o, const ReportInput& in, ReportSumma
   }
   plot::Series st{"taps", {}, taps, plot::palette_colour(0), plot::SeriesStyle::stem};
   for (size_t i = 0; i < taps.size(); ++i) st.x.push_back(static_cast<double>(i));
-  plot::XYPlot pt({"plot-eq-taps", "equalizer taps", 480, 260, {"tap (bit periods)"}, {"weight"}, false});
+  plot::XYPlot pt({"plot-eq-taps", "equalizer taps", 480, 260, axis("tap (bit periods)"), axis("weight"), false});
   pt.add(st);
   auto f = plot::linspace(0.0, 0.5, 257);
-  plot::XYPlot pf({"plot-eq-response", "magnitude responses", 480, 260, {"frequency (cycles per bit)", false, 0.0, 0.5}, {"|H| (dB)"}});
+  plot::XYPlot pf({"plot-eq-response", "magnitude responses", 480, 260, axis("frequency (cycles per bit)", 0.0, 0.5), axis("|H| (dB)")});
   pf.add({"equalizer W", f, plot::fir_magnitude_db(taps, f, -60), plot::palette_colour(0)});
   if (!target.empty())
     pf.add({"target " + (target_name.empty() ? std::string("T") : target_name), f, plot::fir_magnitude_db(target, f, -60), plot::palette_colour(1), plot::SeriesStyle::line, 1.6, true});
@@ -391,20 +406,25 @@ void spectrum_section(std::ostringstream& o, const ReportInput& in, ReportSummar
     s.x.push_back(pg.frequency_hz[k] / 1e6);
     s.y.push_back(std::max(peak - 90, 10 * std::log10(std::max(pg.psd[k], 1e-300))));
   }
-  plot::XYPlot p({"plot-spectrum", "averaged periodogram", 980, 300, {"frequency (MHz)", false, 0.0, w->probe.sample_rate_hz / 2e6},
-                  {"PSD (dB re full scale² / Hz)"}, false});
+  plot::XYPlot p({"plot-spectrum", "averaged periodogram", 980, 300, axis("frequency (MHz)", 0.0, w->probe.sample_rate_hz / 2e6),
+                  axis("PSD (dB re full scale² / Hz)"), false});
   p.add(s);
+  // The preamble's line: a 2T preamble (the usual one) is a tone at a quarter of the bit
+  // rate; the period comes from the format's own pattern when it has one.
+  const int pre = w->preamble_period_bits ? w->preamble_period_bits : 4;
   if (w->probe.bit_rate_hz > 0) {
-    double f4 = w->probe.bit_rate_hz / 4;
-    p.add_vertical({f4 / 1e6, "preamble: bit rate / 4 = " + format_number(f4 / 1e6, 4) + " MHz", "#d55e00", true});
+    double fp = w->probe.bit_rate_hz / pre;
+    p.add_vertical({fp / 1e6, "preamble: bit rate / " + std::to_string(pre) + " = " + format_number(fp / 1e6, 4) + " MHz", "#d55e00", true});
+    if (w->gap_period_bits && w->gap_period_bits != pre)
+      p.add_vertical({w->probe.bit_rate_hz / w->gap_period_bits / 1e6, "gap: bit rate / " + std::to_string(w->gap_period_bits), "#009e73", true});
     if (w->probe.bit_rate_hz / 2 < w->probe.sample_rate_hz / 2)
       p.add_vertical({w->probe.bit_rate_hz / 2e6, "bit rate / 2", "#777777", true});
   }
   o << figure(p.svg(), "Welch's averaged periodogram (Hann window, " + std::to_string(seg) + "-point segments, 50 % overlap, " +
                            std::to_string(pg.segments) + " segments) of the first " + std::to_string(raw.size()) + " samples of " +
                            xml_escape(w->capture.path.filename().string()) + " at " + format_number(w->probe.sample_rate_hz / 1e6, 5) +
-                           " MS/s. The preamble's 2T pattern is a tone at a quarter of the bit rate (" + format_number(w->probe.bit_rate_hz / 1e6, 5) +
-                           " Mbit/s).")
+                           " MS/s. Dashed lines: the spectral lines of the format's preamble and gap patterns at the bit rate (" +
+                           format_number(w->probe.bit_rate_hz / 1e6, 5) + " Mbit/s) divided by the period of their written levels; the curve is floored 90 dB below its peak.")
     << "</section>\n";
   sum.plots.push_back("plot-spectrum");
 }

@@ -75,6 +75,13 @@ format::TrackFormat format_of_run(const nlohmann::json& run, const fs::path& fol
 
 }  // namespace
 
+int nrz_period_bits(const std::vector<uint8_t>& p) {
+  int ones = 0;
+  for (uint8_t b : p) ones += b != 0;
+  if (ones == 0) return 0;
+  return static_cast<int>(p.size()) * (ones % 2 ? 2 : 1);
+}
+
 pipeline::DecodeSettings settings_from_json(const nlohmann::json& j, const std::string& where) {
   pipeline::DecodeSettings s;
   if (!j.is_object()) return s;
@@ -164,6 +171,8 @@ WaveformResult probe_sector_capture(const fs::path& folder, const nlohmann::json
   r.probe.raw_samples_wanted = raw_samples_wanted;
   pipeline::CaptureResult cr = decoder.decode(jc, {}, &r.probe);
   r.target_name = cr.summary.target_name;
+  r.preamble_period_bits = nrz_period_bits(fmt.preamble_pattern);
+  r.gap_period_bits = nrz_period_bits(fmt.gap_pattern);
   r.available = true;
   return r;
 }

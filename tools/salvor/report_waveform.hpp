@@ -8,6 +8,7 @@
 #include <filesystem>
 #include <optional>
 #include <string>
+#include <vector>
 
 #include <nlohmann/json.hpp>
 
@@ -38,7 +39,16 @@ struct WaveformResult {
   CaptureChoice capture;
   pipeline::CaptureProbe probe;
   std::string target_name;
+  // Period in channel bits of the written (NRZ) levels of the format's preamble and gap
+  // patterns: their spectral lines sit at bit rate / period (0: the pattern has no tone).
+  int preamble_period_bits = 0, gap_period_bits = 0;
+  double probed_position = -1;         // sync-mark position of the probed attempt in the capture
 };
+
+// The period of the NRZ levels written by repeating an NRZI pattern: the pattern's length,
+// doubled when it holds an odd number of transitions (the level is inverted after one
+// repeat). 0 for a pattern without transitions.
+int nrz_period_bits(const std::vector<uint8_t>& nrzi_pattern);
 
 // Checks the capture (and its sidecar) against run.json and probes it. A missing capture
 // gives available = false and the reason; a capture whose SHA-256 differs from run.json
