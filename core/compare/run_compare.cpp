@@ -1,4 +1,5 @@
 #include "compare/run_compare.hpp"
+#include "common/parallel.hpp"
 
 #include <algorithm>
 #include <atomic>
@@ -111,35 +112,13 @@ CompareResult run_compare(const Corpus& corpus, const detect::PluginHost& host, 
   CompareResult out;
   out.detectors = options.detectors;
   out.scores.resize(n);
-  unsigned threads = options.threads ? options.threads : std::max(1u, std::thread::hardware_concurrency());
-  threads = static_cast<unsigned>(std::min<size_t>(threads, n));
-  std::atomic<size_t> next{0};
-  std::atomic<bool> failed{false};
-  std::exception_ptr first_error;
-  std::mutex mu;
-  size_t done = 0;
-  auto worker = [&]() {
-    try {
-      while (!failed) {
-        const size_t g = next++;
-        if (g >= n) break;
+  parallel_for(
+      n, options.threads,
+      [&](size_t g) {
         const size_t d = g / ne, e = g % ne;
         out.scores[g] = score_group(corpus, corpus.entries[e], prepared[e], host, options.detectors[d], options);
-        std::lock_guard<std::mutex> lock(mu);
-        ++done;
-        if (options.progress) options.progress(done, n);
-      }
-    } catch (...) {
-      std::lock_guard<std::mutex> lock(mu);
-      if (!first_error) first_error = std::current_exception();
-      failed = true;
-    }
-  };
-  std::vector<std::thread> pool;
-  for (unsigned t = 1; t < threads; ++t) pool.emplace_back(worker);
-  worker();
-  for (auto& t : pool) t.join();
-  if (first_error) std::rethrow_exception(first_error);
+      },
+      options.progress ? std::function<void(size_t, size_t)>(options.progress) : std::function<void(size_t, size_t)>{});
   return out;
 }
 

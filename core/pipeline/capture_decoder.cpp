@@ -5,6 +5,7 @@
 #include <cmath>
 #include <deque>
 #include <map>
+#include <set>
 #include <numeric>
 #include <filesystem>
 #include <cstdio>
@@ -313,11 +314,66 @@ class TrackFramer {
       hits_pending_.erase(hits_pending_.begin());
       // Two hits inside one sector: the later one is a false alarm in the data.
       if (last_sector_end_ && end < *last_sector_end_) continue;
+      if (last_sync_end_) correlation_fallback(*last_sync_end_, end);
+      last_sync_end_ = end;
       ++sync_marks_;
       uint64_t w1c = std::min<uint64_t>(w1, avail);
       if (w1c <= end + header_bits_) continue;  // capture ends right after the sync mark
       decode_window(w0, w1c, end, h.distance);
       last_sector_end_ = end + header_bits_ + data_bits_;
+    }
+  }
+
+  // Sync marks the bit-domain search missed (too many detection errors in the mark): when
+  // the distance between two found marks leaves room for a sector, look where the layout
+  // puts the next sync mark for the EPR4-shaped coarse samples of the known preamble tail
+  // and sync mark (normalised correlation, either polarity), and decode a window there.
+  void correlation_fallback(uint64_t prev_end, uint64_t next_end) {
+    const uint64_t min_pitch = static_cast<uint64_t>(fmt_.sector_bits + fmt_.gap_bits);
+    if (next_end < prev_end + min_pitch + min_pitch / 2) return;
+    if (template_.empty()) {
+      std::vector<int8_t> lv = levels_from_nrzi(known_bits_, 1);
+      const size_t n = std::min<size_t>(64, known_len_);
+      for (size_t i = known_len_ - n; i < known_len_; ++i) template_.push_back(convolve_at(coarse_target_, lv, i));
+      double e = 0;
+      for (double v : template_) e += v * v;
+      for (double& v : template_) v /= std::sqrt(e);
+      for (size_t k = 1; k < layout_.sectors.size(); ++k)
+        pitches_.insert(layout_.sectors[k].sync_bit - layout_.sectors[k - 1].sync_bit);
+    }
+    uint64_t from = prev_end;
+    while (true) {
+      double best = 0;
+      uint64_t best_p = 0;
+      for (uint64_t d : pitches_) {
+        for (int64_t off = -24; off <= 24; ++off) {
+          const uint64_t p = static_cast<uint64_t>(static_cast<int64_t>(from + d) + off);
+          if (p + header_bits_ + data_bits_ + known_len_ > next_end) continue;  // would overlap the next sector
+          if (p < template_.size() || (count_ > ring_.size() && p - known_len_ - margin_ < count_ - ring_.size())) continue;
+          double c = 0, e = 0;
+          for (size_t i = 0; i < template_.size(); ++i) {
+            double y = at(p - template_.size() + i).coarse_y;
+            c += y * template_[i];
+            e += y * y;
+          }
+          double r = e > 0 ? std::fabs(c) / std::sqrt(e) : 0;
+          if (r > best) {
+            best = r;
+            best_p = p;
+          }
+        }
+      }
+      // Common practice, no source: 0.8 of a perfect match keeps false locks in random
+      // data rare for a 64-sample template.
+      if (best < 0.8) return;
+      ++sync_marks_;
+      decode_window(best_p - known_len_ - margin_, best_p - known_len_ - margin_ + window_len_, best_p, -1);
+      if (!results_.empty() && results_.back().capture_position == at(best_p - 1).position)
+        results_.back().notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
+      for (auto& d : deferred_)
+        if (d.attempt.capture_position == at(best_p - 1).position)
+          d.attempt.notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
+      from = best_p;
     }
   }
 
@@ -429,8 +485,11 @@ class TrackFramer {
     // Fine sync check (evidence): the mark in the fine decisions.
     int fine_sync = frame::hamming_distance(
         std::span<const uint8_t>(bits.data() + ks - fmt_.sync_mark.size(), fmt_.sync_mark.size()), fmt_.sync_mark);
-    a.notes.push_back("sync mark at distance " + std::to_string(sync_distance) + " (coarse), " +
-                      std::to_string(fine_sync) + " (fine)");
+    if (sync_distance >= 0)
+      a.notes.push_back("sync mark at distance " + std::to_string(sync_distance) + " (coarse), " +
+                        std::to_string(fine_sync) + " (fine)");
+    else
+      a.notes.push_back("sync mark at distance " + std::to_string(fine_sync) + " (fine)");
 
     // Header.
     const auto& code = format::rll89_code();
@@ -631,6 +690,9 @@ class TrackFramer {
   std::unique_ptr<frame::SyncSearch> sync_;
   std::vector<frame::SyncHit> hits_pending_;
   std::optional<uint64_t> last_sector_end_;
+  std::optional<uint64_t> last_sync_end_;
+  std::vector<double> template_;   // correlation template (unit energy), see correlation_fallback
+  std::set<uint64_t> pitches_;     // sync-to-sync distances of consecutive sectors in the layout
   uint64_t sync_marks_ = 0;
   uint64_t truncated_ = 0;  // sectors cut off by the end of the capture
 

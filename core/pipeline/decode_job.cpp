@@ -1,12 +1,14 @@
 #include "pipeline/decode_job.hpp"
 
 #include <atomic>
+#include <memory>
 #include <exception>
 #include <filesystem>
 #include <mutex>
 #include <thread>
 
 #include "common/error.hpp"
+#include "common/parallel.hpp"
 #include "common/sha256.hpp"
 #include "load/capture_reader.hpp"
 
@@ -35,36 +37,11 @@ std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackF
                                             const JobRunOptions& options, std::vector<results::SectorAttempt>& out) {
   const size_t n = job.captures.size();
   std::vector<CaptureResult> results(n);
-  unsigned threads = options.threads ? options.threads : std::max(1u, std::thread::hardware_concurrency());
-  threads = static_cast<unsigned>(std::max<size_t>(1, std::min<size_t>(threads, n)));
-  std::atomic<size_t> next{0};
-  std::atomic<bool> failed{false};
-  std::exception_ptr first_error;
-  std::mutex mu;
-  size_t done = 0;
-
-  auto worker = [&]() {
-    try {
-      CaptureDecoder decoder(fmt, host, settings);
-      while (!failed) {
-        size_t i = next++;
-        if (i >= n) break;
-        results[i] = decoder.decode(job.captures[i]);
-        std::lock_guard<std::mutex> lock(mu);
-        ++done;
-        if (options.progress) options.progress(done, n);
-      }
-    } catch (...) {
-      std::lock_guard<std::mutex> lock(mu);
-      if (!first_error) first_error = std::current_exception();
-      failed = true;
-    }
-  };
-  std::vector<std::thread> pool;
-  for (unsigned t = 1; t < threads; ++t) pool.emplace_back(worker);
-  worker();
-  for (auto& t : pool) t.join();
-  if (first_error) std::rethrow_exception(first_error);
+  // A CaptureDecoder only holds settings (each decode makes its own stage objects), so
+  // one per capture costs nothing and shares nothing between threads.
+  parallel_for(
+      n, options.threads,
+      [&](size_t i) { results[i] = CaptureDecoder(fmt, host, settings).decode(job.captures[i]); }, options.progress);
 
   std::vector<CaptureSummary> summaries;
   for (auto& r : results) {
