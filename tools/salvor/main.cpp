@@ -28,10 +28,10 @@ using salvor::cli::Command;
 const Command kCommands[] = {
     {"inspect", "what is in a capture: rate, SNR, density, sectors seen", salvor::cli::run_inspect},
     {"decode", "decode captures or a manifest into a recovered image, map and log", salvor::cli::run_decode},
-    {"report", "a self-contained HTML report with plots of a decode folder", salvor::cli::run_report},
+    {"retry", "re-decode what is not verified with other detectors and settings", salvor::cli::run_retry},
     {"merge", "best result of every sector across decode folders of one drive", salvor::cli::run_merge},
     {"compare", "detectors side by side on a corpus with ground truth: tables and plots", salvor::cli::run_compare},
-    {"retry", "re-decode what is not verified with other detectors and settings", salvor::cli::run_retry},
+    {"report", "a self-contained HTML report with plots of a decode folder", salvor::cli::run_report},
     {"plugins", "the detector plugins that can be loaded, and files refused", salvor::cli::run_plugins},
     {nullptr, nullptr, nullptr},
 };
