@@ -103,6 +103,7 @@ struct RingEntry {
 struct Deferred {
   SectorAttempt attempt;
   SectorBytes bytes;  // the data as detected, decoded once the address is known
+  std::vector<float> eye_samples, eye_ideal;  // for a probe, when it asked for an eye
 };
 
 }  // namespace
@@ -518,10 +519,12 @@ class TrackFramer {
       a.channel_bits.assign(bits.begin() + static_cast<long>(ks), bits.begin() + static_cast<long>(e));
       a.channel_llr.assign(llr.begin() + static_cast<long>(ks), llr.begin() + static_cast<long>(e));
     }
-    if (probe_ && header && probe_->eye_lba && *probe_->eye_lba == header->lba && probe_->eye_samples.empty() &&
-        !fine_target_.empty()) {
-      // Eye diagram material: equalized samples and the target applied to the decisions
-      // (with the polarity that fits), from the header to the end of the data.
+    // Eye diagram material for the probe: equalized samples and the target applied to the
+    // decisions (with the polarity that fits), from the header to the end of the data.
+    // A sector whose header failed keeps it until its placement names its address.
+    std::vector<float> eye_y, eye_d;
+    if (probe_ && probe_->eye_lba && probe_->eye_samples.empty() && !fine_target_.empty() &&
+        (!header || *probe_->eye_lba == header->lba)) {
       double sp = 0, sn = 0;
       for (size_t i = ks; i < std::min(L, kd + data_bits_); ++i) {
         double d = convolve_at(fine_target_, dec, i);
@@ -530,11 +533,10 @@ class TrackFramer {
       }
       double sign = sp <= sn ? 1.0 : -1.0;
       for (size_t i = ks; i < std::min(L, kd + data_bits_); ++i) {
-        probe_->eye_samples.push_back(y[i]);
-        probe_->eye_ideal.push_back(static_cast<float>(sign * convolve_at(fine_target_, dec, i)));
+        eye_y.push_back(y[i]);
+        eye_d.push_back(static_cast<float>(sign * convolve_at(fine_target_, dec, i)));
       }
-      probe_->target = fine_target_;
-      probe_->equalizer_taps = fine_eq_ ? fine_eq_->taps() : std::vector<double>{};
+      if (header) keep_eye(std::move(eye_y), std::move(eye_d));
     }
     a.header_ok = header.has_value();
     if (header) {
@@ -563,8 +565,16 @@ class TrackFramer {
       results_.push_back(std::move(a));
     } else {
       a.notes.push_back("header unreadable");
-      deferred_.push_back(Deferred{std::move(a), std::move(sb)});
+      deferred_.push_back(Deferred{std::move(a), std::move(sb), std::move(eye_y), std::move(eye_d)});
     }
+  }
+
+  void keep_eye(std::vector<float> y, std::vector<float> ideal) {
+    if (!probe_ || !probe_->eye_samples.empty()) return;
+    probe_->eye_samples = std::move(y);
+    probe_->eye_ideal = std::move(ideal);
+    probe_->target = fine_target_;
+    probe_->equalizer_taps = fine_eq_ ? fine_eq_->taps() : std::vector<double>{};
   }
 
   SectorDecodeOptions decode_options() const {
@@ -653,6 +663,8 @@ class TrackFramer {
         }
         if (results::is_verified(best.status)) break;
       }
+      if (probe_ && probe_->eye_lba && *probe_->eye_lba == best.lba && !d.eye_samples.empty())
+        keep_eye(std::move(d.eye_samples), std::move(d.eye_ideal));
       results_.push_back(std::move(best));
     }
     deferred_.clear();
