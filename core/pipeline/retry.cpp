@@ -1,11 +1,14 @@
 #include "pipeline/retry.hpp"
 
 #include <algorithm>
+#include <cstdio>
+#include <filesystem>
 #include <chrono>
 #include <map>
 #include <set>
 
 #include "pipeline/decode_job.hpp"
+#include "pipeline/revolution_combine.hpp"
 #include "pipeline/sector_decode.hpp"
 #include "results/confidence.hpp"
 
@@ -65,6 +68,13 @@ std::vector<RetryStrategy> retry_strategies(const DecodeSettings& base, const de
   v.detector = best;
   v.target.clear();
   {
+    // Right after the first detector: averaging aligned revolutions gains ~10 log10(N) dB
+    // against electronic noise, more than any detector change.
+    add(best + "/combined", v);
+    out.back().combine_revolutions = true;
+    std::rotate(out.begin() + 1, out.end() - 1, out.end());
+  }
+  {
     DecodeSettings s = v;
     s.equalizer_taps = 21;
     s.equalizer_step = 0.005;
@@ -121,8 +131,36 @@ RetryReport run_retry(const Job& job, const format::TrackFormat& fmt, const dete
     }
     Job sub = job;
     sub.captures.clear();
-    for (const auto& c : job.captures)
-      if (c.cylinder && c.head && tracks.count({*c.cylinder, *c.head})) sub.captures.push_back(c);
+    std::map<std::pair<int, int>, std::vector<int>> combined_revs;
+    if (st.combine_revolutions) {
+      // One work capture per track: the aligned average of its revolutions.
+      std::map<std::pair<int, int>, std::vector<const JobCapture*>> per_track;
+      for (const auto& c : job.captures)
+        if (c.cylinder && c.head && tracks.count({*c.cylinder, *c.head})) per_track[{*c.cylinder, *c.head}].push_back(&c);
+      for (auto& [track, list] : per_track) {
+        if (list.size() < 2) continue;
+        std::sort(list.begin(), list.end(),
+                  [](const JobCapture* a, const JobCapture* b) { return a->revolution.value_or(0) < b->revolution.value_or(0); });
+        std::vector<std::filesystem::path> paths;
+        std::vector<int> revs;
+        for (const auto* c : list) {
+          paths.push_back(c->path);
+          revs.push_back(c->revolution.value_or(0));
+        }
+        CombinedCapture cc = combine_revolutions(paths);
+        char name[64];
+        std::snprintf(name, sizeof name, "c%03d-h%d-combined.w64", track.first, track.second);
+        std::filesystem::path work = folder.dir() / "work" / name;
+        write_combined_capture(cc, paths.front(), revs, work);
+        JobCapture jc = *list.front();
+        jc.path = work;
+        sub.captures.push_back(jc);
+        combined_revs[track] = revs;
+      }
+    } else {
+      for (const auto& c : job.captures)
+        if (c.cylinder && c.head && tracks.count({*c.cylinder, *c.head})) sub.captures.push_back(c);
+    }
 
     // Decode, then keep the attempts at unverified sectors.
     JobRunOptions ro;
@@ -136,6 +174,10 @@ RetryReport run_retry(const Job& job, const format::TrackFormat& fmt, const dete
       for (auto& a : got) {
         if (!todo.count(a.lba)) continue;
         a.attempt = "retry:" + st.name;
+        if (st.combine_revolutions) {
+          a.revolutions = combined_revs[{a.cylinder, a.head}];
+          a.notes.push_back("decoded from the aligned average of " + std::to_string(a.revolutions.size()) + " revolutions");
+        }
         by_lba[a.lba].push_back(a);
         SectorAttempt logged = a;
         logged.channel_bits.clear();

@@ -23,8 +23,9 @@
 namespace salvor::pipeline {
 
 struct RetryStrategy {
-  std::string name;         // e.g. "pdnp", "pdnp/eq21", "npml/E2PR4"
+  std::string name;         // e.g. "pdnp", "pdnp/eq21", "npml/E2PR4", "pdnp/combined"
   DecodeSettings settings;
+  bool combine_revolutions = false;  // decode the aligned average of each track's revolutions
 };
 
 // The standard order: other detectors first (the most capable first), then front-end
