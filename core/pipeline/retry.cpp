@@ -91,6 +91,19 @@ std::vector<RetryStrategy> retry_strategies(const DecodeSettings& base, const de
     s.pll_track_bandwidth = base.pll_track_bandwidth * 2;
     add(best + "/pll-wide", s);
   }
+  // The detectors' own parameters: a longer noise predictor, longer data patterns, a
+  // deeper traceback (only for detectors that are loaded and allowed).
+  auto with_param = [&](const std::string& det, const std::string& key, const std::string& value) {
+    if (std::find(dets.begin(), dets.end(), det) == dets.end()) return;
+    DecodeSettings s = base;
+    s.detector = det;
+    s.target.clear();
+    add(det + "/" + key + "=" + value, s);
+    out.back().settings.detector_params = {{key, value}};
+  };
+  with_param("pdnp", "pattern_length", "4");
+  with_param("npml", "predictor_order", "4");
+  with_param("viterbi", "traceback_depth", "128");
   for (const char* t : {"GPR", "E2PR4", "PR4"}) {
     DecodeSettings s = v;
     s.target = t;
