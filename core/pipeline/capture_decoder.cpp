@@ -19,7 +19,7 @@
 #include "equalize/targets.hpp"
 #include "format/rll89.hpp"
 #include "format/track_codec.hpp"
-#include "frame/sync_search.hpp"
+#include "format/sync_search.hpp"
 #include "resample/resampler.hpp"
 #include "results/confidence.hpp"
 #include "timing/timing_loop.hpp"
@@ -97,6 +97,12 @@ struct RingEntry {
   uint8_t coarse_bit = 0; // coarse detector decision (NRZI)
   uint8_t flag = 0;       // conditioning flags (erasure hint)
   double position = 0;    // capture position (input sample index)
+};
+
+// A sync mark as the framer uses it.
+struct Hit {
+  uint64_t end_bit = 0;  // the bit after the mark's last bit
+  int distance = 0;
 };
 
 // A sector whose header did not verify: kept for placement at the end of the capture.
@@ -180,7 +186,7 @@ class TrackFramer {
     coarse_det_ = std::make_unique<detect::Detector>(host.create(s.coarse_detector, cs));
 
     int tol = s.sync_tolerance >= 0 ? s.sync_tolerance : fmt.sync_tolerance;
-    sync_ = std::make_unique<frame::SyncSearch>(frame::SyncSearchConfig{fmt.sync_mark, tol});
+    sync_ = std::make_unique<format::SyncSearch>(format::SyncSearchConfig{fmt.sync_mark, tol});
 
     // Fine path: the detector's target.
     const detect::DetectorInfo* info = host.find(s.detector);
@@ -225,7 +231,7 @@ class TrackFramer {
     std::vector<float> out(s_.equalizer_taps + 8);
     size_t n = coarse_eq_->flush(out);
     feed_coarse_detector(std::span<const float>(out.data(), n), true);
-    sync_->flush(hits_pending_);
+    if (auto last = sync_->flush()) add_hit(*last);
     decode_ready(true);
     place_deferred();
   }
@@ -288,16 +294,25 @@ class TrackFramer {
     }
   }
 
+  // The framer counts a sync mark by the bit after its end (where the header starts).
+  void add_hit(const format::SyncHit& h) { hits_pending_.push_back({h.position + fmt_.sync_mark.size(), h.distance}); }
+
   void store_coarse_bits(std::span<const uint8_t> b) {
     for (size_t i = 0; i < b.size(); ++i) at(coarse_bit_count_ + i).coarse_bit = b[i];
     coarse_bit_count_ += b.size();
-    sync_->process(b, hits_pending_);
+    hit_buf_.resize(64);
+    size_t off = 0;
+    while (off < b.size()) {
+      Progress p = sync_->process(b.subspan(off), hit_buf_);
+      off += p.consumed;
+      for (size_t i = 0; i < p.produced; ++i) add_hit(hit_buf_[i]);
+    }
   }
 
   // Decodes every pending sync hit whose whole window has arrived.
   void decode_ready(bool at_end) {
     while (!hits_pending_.empty()) {
-      const frame::SyncHit h = hits_pending_.front();
+      const Hit h = hits_pending_.front();
       // Window: [sync_end - known_len - margin, sync_end + header + data + postamble + margin)
       const uint64_t end = h.end_bit;
       if (end < known_len_ + margin_) {  // too close to the start to hold the preamble
@@ -484,8 +499,9 @@ class TrackFramer {
     }
 
     // Fine sync check (evidence): the mark in the fine decisions.
-    int fine_sync = frame::hamming_distance(
-        std::span<const uint8_t>(bits.data() + ks - fmt_.sync_mark.size(), fmt_.sync_mark.size()), fmt_.sync_mark);
+    int fine_sync = 0;
+    for (size_t i = 0; i < fmt_.sync_mark.size(); ++i)
+      fine_sync += (bits[ks - fmt_.sync_mark.size() + i] ^ fmt_.sync_mark[i]) & 1;
     if (sync_distance >= 0)
       a.notes.push_back("sync mark at distance " + std::to_string(sync_distance) + " (coarse), " +
                         std::to_string(fine_sync) + " (fine)");
@@ -699,8 +715,9 @@ class TrackFramer {
   std::vector<double> coarse_target_;
   std::unique_ptr<equalize::Equalizer> coarse_eq_;
   std::unique_ptr<detect::Detector> coarse_det_;
-  std::unique_ptr<frame::SyncSearch> sync_;
-  std::vector<frame::SyncHit> hits_pending_;
+  std::unique_ptr<format::SyncSearch> sync_;
+  std::vector<Hit> hits_pending_;       // sync marks found, oldest first
+  std::vector<format::SyncHit> hit_buf_;  // scratch for the search's output
   std::optional<uint64_t> last_sector_end_;
   std::optional<uint64_t> last_sync_end_;
   std::vector<double> template_;   // correlation template (unit energy), see correlation_fallback
