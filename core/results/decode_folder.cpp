@@ -56,6 +56,8 @@ static nlohmann::json read_json_file(const fs::path& p) {
 
 DecodeFolder DecodeFolder::open(const fs::path& dir) {
   if (!fs::is_directory(dir)) throw_input(dir.string(), "not a decode folder (no such directory)");
+  if (!fs::exists(dir / "damage-map.json") && !fs::exists(dir / "run.json"))
+    throw_input(dir.string(), "not a decode folder (no damage-map.json or run.json: make one with salvor decode)");
   nlohmann::json map = read_json_file(dir / "damage-map.json");
   Geometry g;
   try {
