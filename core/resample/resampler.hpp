@@ -38,8 +38,24 @@
 // Flags: the flag overload carries a per-sample uint8 flag byte across the same time
 // map. The flag of output n is the OR of the flags of every input sample k with
 // |k - t_n| <= flag_reach (input samples).
+//
+// Exact polyphase: when the ratio equals P/Q to double precision with Q <=
+// max_exact_denominator (5/4 for 2.5 -> 2 samples per bit), only Q fractional offsets
+// ever occur; each gets its own filter designed at exactly that offset (same design,
+// no table interpolation) and floor(t_n) is tracked in integers (n = b Q + k:
+// floor(first) + b P + a per-k offset). Any other ratio uses the interpolated table above.
+// Designing Q rows instead of a table makes construction cheap (microseconds); the
+// coefficients are immutable and shared by copies of a Resampler.
+//
+// Kernels: the dot products run in a SIMD kernel chosen at run time (Highway: AVX-512,
+// AVX2, SSE4, ...). Its arithmetic is defined by the portable scalar reference
+// (scalar_reference = true): taps padded to a multiple of 16, 16 partial sums (tap j
+// into sum j mod 16, fused multiply-add), then a fixed pairwise tree. Targets with FMA
+// reproduce the reference bit for bit; targets without (SSE4) round the products
+// separately and differ in the last bits (tests/resample state the tolerance).
 
 #include <cstdint>
+#include <memory>
 #include <span>
 #include <string>
 #include <vector>
@@ -58,6 +74,8 @@ struct ResamplerConfig {
   int phases = 512;                     // table entries per input sample, [16, 8192]
   double first_output_position = 0.0;   // input position of output sample 0, >= 0
   double flag_reach = -1.0;             // input samples; < 0 means max(1, ratio)
+  int max_exact_denominator = 64;       // exact polyphase for ratios P/Q, Q <= this; 0: never
+  bool scalar_reference = false;        // run the portable scalar kernel (the SIMD reference)
   // Convenience: the rate the PLL wants, samples_per_bit * bit_rate_hz.
   static ResamplerConfig for_bit_rate(double input_rate_hz, double bit_rate_hz,
                                       double samples_per_bit);
@@ -71,7 +89,8 @@ struct ResamplerFilterSpec {
   double stopband_edge = 0.0;    // cycles per input sample
   double kaiser_beta = 0.0;
   int taps = 0;                  // input samples per output sample (even)
-  int phases = 0;
+  int phases = 0;                // table entries per input sample (interpolated path)
+  int exact_phases = 0;          // Q when the ratio is P/Q on the exact polyphase path, else 0
 };
 
 // Modified Bessel function of the first kind, order 0 (power series).
@@ -112,23 +131,33 @@ class Resampler {
   double response(double f, double mu) const;
 
  private:
+  struct Filter;  // immutable coefficients, shared by copies (resampler.cpp)
+
   template <bool with_flags>
   Progress run(std::span<const float> in, std::span<const uint8_t> in_flags,
                std::span<float> out, std::span<uint8_t> out_flags, bool flushing);
   void compact(int64_t first_needed);
+  // floor(t_n) as the kernels place output n (integer bookkeeping on the exact path).
+  int64_t base_index(uint64_t n) const;
+  // Outputs from next_out_ on (at most `room`) whose taps end at or before input `last`.
+  size_t outputs_within(int64_t last, size_t room) const;
+  void compute(uint64_t n0, size_t count, float* out) const;
 
   ResamplerFilterSpec spec_;
   double first_position_ = 0.0;
   double flag_reach_ = 1.0;
-  std::vector<float> table_;   // (phases + 1) rows of `taps` coefficients
-  std::vector<float> delta_;   // row p+1 minus row p, for linear interpolation
-  // History: input samples [buf_start_, buf_start_ + size_) (zeros before index 0).
+  bool scalar_reference_ = false;
+  std::shared_ptr<const Filter> filter_;
+  // History: input samples [buf_start_, buf_start_ + size_) (zeros before index 0), plus
+  // room for the kernel to read a padded tap block past the end.
   std::vector<float> buf_;
   std::vector<uint8_t> flag_buf_;
+  size_t capacity_ = 0;     // most samples the history holds
   size_t size_ = 0;
   int64_t buf_start_ = 0;
   uint64_t in_index_ = 0;   // inputs consumed so far
   uint64_t next_out_ = 0;   // index of the next output sample
+  int64_t last_flagged_ = 0;  // index of the newest input with a nonzero flag (or far below)
   int64_t zeros_padded_ = 0;  // flush padding appended beyond the input
   bool flushed_ = false;
 };

@@ -8,6 +8,7 @@
 #include <vector>
 
 #include "common/error.hpp"
+#include "kernel_equality.hpp"
 #include "readback_fixture.hpp"
 #include "resample/resampler.hpp"
 
@@ -332,4 +333,152 @@ TEST(Resampler, FlagSpanMappingEdgeCases) {
   EXPECT_EQ(m.start, 2u);
   EXPECT_EQ(m.end, 4u);
   EXPECT_EQ(m.kind, flag_dropout);
+}
+
+// The exact polyphase path is taken for ratios P/Q with small Q (2.5 -> 2 samples per bit
+// is 5/4, 250 -> 500 MHz is 1/2) and not for an arbitrary capture rate.
+TEST(Resampler, ExactPolyphaseIsChosenForSmallDenominators) {
+  EXPECT_EQ(Resampler(config(250e6, 200e6)).spec().exact_phases, 4);
+  EXPECT_EQ(Resampler(config(250e6, 500e6)).spec().exact_phases, 2);
+  EXPECT_EQ(Resampler(config(240e6, 200e6)).spec().exact_phases, 5);  // 6/5, not exact in binary
+  EXPECT_EQ(Resampler(config(250e6, 200e6 * 1.0037)).spec().exact_phases, 0);
+  auto c = config(250e6, 200e6);
+  c.max_exact_denominator = 0;
+  EXPECT_EQ(Resampler(c).spec().exact_phases, 0);
+  c.max_exact_denominator = -1;
+  EXPECT_THROW(Resampler{c}, Error);
+}
+
+// Chunking invariance (DEVELOPERS.md) on the exact path, with a fractional first output
+// position and flags: chunks of 1, 7, 4096 and small output room give identical results.
+TEST(Resampler, ExactPolyphaseChunkingInvariance) {
+  for (double out_rate : {200e6, 240e6 * 5 / 6, 500e6}) {
+    auto c = config(250e6, out_rate);
+    c.first_output_position = 3.25;
+    const auto x = noise(20000, 21);
+    std::vector<uint8_t> fin(x.size(), 0);
+    for (size_t i = 5000; i < 5100; ++i) fin[i] = 1;
+    fin[12000] = 4;
+    Resampler whole_r(c);
+    ASSERT_GT(whole_r.spec().exact_phases, 0);
+    std::vector<uint8_t> f_whole;
+    const auto whole = run_chunked(whole_r, x, x.size(), 100000, &f_whole, &fin);
+    EXPECT_EQ(whole.size(), static_cast<size_t>(std::ceil((20000.0 - 3.25) / whole_r.ratio())));
+    for (size_t chunk : {size_t{1}, size_t{7}, size_t{4096}}) {
+      for (size_t room : {size_t{1}, size_t{5}, size_t{100000}}) {
+        Resampler r(c);
+        std::vector<uint8_t> f;
+        const auto y = run_chunked(r, x, chunk, room, &f, &fin);
+        ASSERT_EQ(y.size(), whole.size());
+        EXPECT_TRUE(std::equal(y.begin(), y.end(), whole.begin())) << "chunk " << chunk << " room " << room;
+        EXPECT_EQ(f, f_whole);
+      }
+    }
+    // Flags follow the same time map as on the interpolated path.
+    const FlagSpan expect = map_span_to_output({5000, 5100, flag_clipped}, c.first_output_position, whole_r.ratio(),
+                                               whole_r.flag_reach());
+    for (size_t n = expect.start > 3 ? expect.start - 3 : 0; n < expect.end + 3; ++n)
+      EXPECT_EQ((f_whole[n] & 1) != 0, n >= expect.start && n < expect.end) << out_rate << " output " << n;
+  }
+}
+
+// The exact path designs each phase at its exact offset; the interpolated table
+// approximates the same design by linear interpolation between 512 phases. The
+// interpolation error of the coefficients is a(1-a)/2 (1/512)^2 h''(mu - j) (Taylor
+// remainder of linear interpolation), i.e. a filter of response (2 pi f)^2 / 8 (1/512)^2
+// times the design's: at the passband edge of ratio 5/4 (f = 0.32 cycles per sample)
+// 1.9e-6 of the signal, -114 dB. The bound checked, -100 dB, leaves margin. First output
+// positions off the table's grid (0.37 + r / 4 is never p / 512), so that the table
+// really interpolates.
+TEST(Resampler, ExactPathAgreesWithInterpolatedTable) {
+  ReadbackSpec s;
+  s.bit_rate_hz = 100e6;
+  s.sample_rate_hz = 250e6;
+  const auto x = lorentzian_readback(random_nrz(12000, 13), s, 30000);
+  for (double first : {0.37, 2.3}) {
+    auto c = config(250e6, 200e6);
+    c.first_output_position = first;
+    const auto exact = run_whole(c, x);
+    c.max_exact_denominator = 0;
+    const auto table = run_whole(c, x);
+    ASSERT_EQ(exact.size(), table.size());
+    double d2 = 0.0, s2 = 0.0;
+    for (size_t i = 0; i < exact.size(); ++i) {
+      d2 += (exact[i] - table[i]) * static_cast<double>(exact[i] - table[i]);
+      s2 += static_cast<double>(exact[i]) * exact[i];
+    }
+    RecordProperty("difference_db_first_" + std::to_string(first), std::to_string(10.0 * std::log10(d2 / s2)));
+    EXPECT_LE(10.0 * std::log10(d2 / s2), -100.0) << first;
+  }
+}
+
+// Tones through the exact path keep amplitude (0.01 dB), phase at t_n (1e-4 rad) and
+// residual (-80 dB), the bounds of the interpolated path's test above.
+TEST(Resampler, TonesThroughTheExactPath) {
+  for (double out_rate : {200e6, 500e6}) {
+    auto c = config(250e6, out_rate);
+    c.first_output_position = 1.375;
+    Resampler r(c);
+    ASSERT_GT(r.spec().exact_phases, 0);
+    const double lower_nyq = 0.5 / std::max(1.0, r.ratio());
+    for (double frac : {0.05, 0.3, 0.55, 0.8}) {
+      const auto fit = measure_tone(c, frac * lower_nyq, 40000);
+      EXPECT_LE(std::abs(20.0 * std::log10(fit.amplitude)), 0.01) << out_rate << " f " << frac;
+      EXPECT_NEAR(std::remainder(fit.phase - 0.3, 2.0 * pi), 0.0, 1e-4) << out_rate << " f " << frac;
+      EXPECT_LE(20.0 * std::log10(fit.residual_rms / fit.amplitude), -80.0) << out_rate << " f " << frac;
+    }
+  }
+}
+
+// SIMD kernels equal the scalar reference (kernel_equality.hpp) on random input and on a
+// Lorentzian readback, on both paths, decimating and interpolating.
+TEST(Resampler, SimdKernelsMatchTheScalarReference) {
+  ReadbackSpec s;
+  s.bit_rate_hz = 100e6;
+  s.sample_rate_hz = 250e6;
+  const auto readback = lorentzian_readback(random_nrz(8000, 14), s, 20000);
+  const auto random = noise(20000, 15);
+  for (double out_rate : {200e6, 200e6 * 1.001371, 500e6, 611e6, 100e6 * 1.011}) {
+    auto c = config(250e6, out_rate);
+    c.first_output_position = 0.625;
+    const std::string what = "out " + std::to_string(out_rate);
+    EXPECT_GE(expect_kernels_match_reference(c, random, "random, " + what), 1u);
+    EXPECT_GE(expect_kernels_match_reference(c, readback, "readback, " + what), 1u);
+  }
+}
+
+// The filter design's SIMD series (the Kaiser window's I0) uses the same operations in the
+// same order on every target, so the designed table, seen through its response, is
+// identical whichever target built it.
+TEST(Resampler, DesignIsIdenticalOnEveryTarget) {
+  const auto c = config(250e6, 200e6 * 1.001371);
+  const Resampler reference(c);
+  for (const int64_t target : hwy::SupportedAndGeneratedTargets()) {
+    hwy::SetSupportedTargetsForTest(target);
+    const Resampler r(c);
+    hwy::SetSupportedTargetsForTest(0);
+    for (double mu : {0.0, 0.1234, 0.5, 0.987})
+      for (double f : {0.0, 0.1, 0.31, 0.45})
+        EXPECT_EQ(r.response(f, mu), reference.response(f, mu)) << hwy::TargetName(target) << " mu " << mu << " f " << f;
+  }
+}
+
+// Stopband on the exact path (same bound and tones as the interpolated path's test):
+// 2.5 -> 2 samples per bit (5/4) and a 5/2 decimation.
+TEST(Resampler, StopbandOnTheExactPathAtLeast80dB) {
+  for (double out_rate : {200e6, 100e6}) {
+    const auto c = config(250e6, out_rate);
+    Resampler r(c);
+    ASSERT_GT(r.spec().exact_phases, 0);
+    const double out_nyq_in_cycles = 0.5 / r.ratio();
+    for (double frac : {1.0, 1.02, 1.1, 1.3, 1.6, 2.0, 2.4}) {
+      const double f = frac * out_nyq_in_cycles;
+      if (f >= 0.499) continue;
+      const auto x = tone(60000, f, 1.0, 0.1);
+      const auto y = run_whole(c, x);
+      const size_t skip = static_cast<size_t>(2 * r.half_taps() / r.ratio()) + 4;
+      const double level = rms(std::span<const float>(y).subspan(skip, y.size() - 2 * skip)) / rms(x);
+      EXPECT_LE(20.0 * std::log10(level), -80.0) << "out " << out_rate << " tone at " << frac << " x new Nyquist";
+    }
+  }
 }
