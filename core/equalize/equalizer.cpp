@@ -5,6 +5,7 @@
 #include <string>
 
 #include "common/error.hpp"
+#include "equalize/equalizer_kernels.hpp"
 #include "equalize/targets.hpp"
 
 namespace salvor::equalize {
@@ -80,11 +81,85 @@ Equalizer::Equalizer(const EqualizerConfig& config) : config_(config) {
     w_initial_ = config_.initial_taps;
   }
   ring_size_ = config_.taps + config_.max_decision_latency + kMaxTargetTaps + 2;
+  padded_taps_ = (config_.taps + detail::kTapPadding - 1) / detail::kTapPadding * detail::kTapPadding;
+  update_mask_.assign(padded_taps_, 0.0);
+  window_mask_.assign(padded_taps_, 0.0);
+  for (size_t k = 0; k < config_.taps; ++k) {
+    window_mask_[k] = 1.0;
+    // w_rev[k] is w[taps-1-k]
+    update_mask_[k] = (config_.fix_main_tap && config_.taps - 1 - k == config_.delay) ? 0.0 : 1.0;
+  }
   reset();
+}
+
+struct Equalizer::KernelView {
+  detail::LmsKernelState s;
+};
+
+void Equalizer::load_kernel_state(KernelView& v) {
+  detail::LmsKernelState& s = v.s;
+  s.x = line_x_.data();
+  s.bad = line_bad_.data();
+  s.level = line_level_.data();
+  s.ring = ring_size_;
+  s.next_slot = next_slot_;
+  s.w_rev = w_rev_.data();
+  s.update_mask = update_mask_.data();
+  s.window_mask = window_mask_.data();
+  s.taps = config_.taps;
+  s.padded = padded_taps_;
+  s.delay = config_.delay;
+  s.target = config_.target.data();
+  s.target_len = config_.target.size();
+  s.normalized = config_.normalized;
+  s.step_size = config_.step_size;
+  s.mse_time_constant = config_.mse_time_constant;
+  s.n_in = n_in_;
+  s.n_out = n_out_;
+  s.last_bad_plus1 = last_bad_plus1_;
+  s.pending_mu1 = pending_mu1_;
+  s.pending_mu2 = pending_mu2_;
+  s.running_mse = running_mse_;
+  s.running_started = running_started_;
+  s.span_sum = span_sum_;
+  s.total_sum = total_sum_;
+  s.span_count = span_count_;
+  s.total_count = total_count_;
+}
+
+void Equalizer::store_kernel_state(const KernelView& v) {
+  const detail::LmsKernelState& s = v.s;
+  next_slot_ = s.next_slot;
+  n_in_ = s.n_in;
+  n_out_ = s.n_out;
+  last_bad_plus1_ = s.last_bad_plus1;
+  pending_mu1_ = s.pending_mu1;
+  pending_mu2_ = s.pending_mu2;
+  running_mse_ = s.running_mse;
+  running_started_ = s.running_started;
+  span_sum_ = s.span_sum;
+  total_sum_ = s.total_sum;
+  span_count_ = s.span_count;
+  total_count_ = s.total_count;
+  // Public taps: w_rev with the pending updates applied, oldest first (as fold_pending does).
+  const size_t taps = config_.taps;
+  const size_t last = (s.next_slot + ring_size_ - 1) % ring_size_;
+  const double* x1 = line_x_.data() + (last + ring_size_ - (taps - 1)) % ring_size_;
+  const double* x2 = line_x_.data() + (last + 2 * ring_size_ - 1 - (taps - 1)) % ring_size_;
+  for (size_t i = 0; i < taps; ++i) {
+    const size_t k = taps - 1 - i;
+    double w = w_rev_[k];
+    if (s.pending_mu2 != 0.0) w = w + s.pending_mu2 * (update_mask_[k] * x2[k]);
+    if (s.pending_mu1 != 0.0) w = w + s.pending_mu1 * (update_mask_[k] * x1[k]);
+    w_[i] = w;
+  }
 }
 
 void Equalizer::reset() {
   w_ = w_initial_;
+  pending_mu1_ = pending_mu2_ = 0.0;  // updates of the old taps, dropped with them
+  w_rev_.assign(padded_taps_, 0.0);
+  for (size_t i = 0; i < config_.taps; ++i) w_rev_[config_.taps - 1 - i] = w_[i];
   trained_ = false;
   running_mse_ = 0.0;
   running_started_ = false;
@@ -94,10 +169,26 @@ void Equalizer::reset() {
 }
 
 void Equalizer::restart_span() {
-  x_.assign(ring_size_, 0.0);
-  x_bad_.assign(ring_size_, 0);
-  level_.assign(ring_size_, 0);
   n_in_ = n_out_ = next_decision_ = 0;
+  if (config_.reference_kernel) {
+    x_.assign(ring_size_, 0.0);
+    x_bad_.assign(ring_size_, 0);
+    level_.assign(ring_size_, 0);
+    return;
+  }
+  if ((pending_mu1_ != 0.0 || pending_mu2_ != 0.0) && !line_x_.empty()) {
+    KernelView view;
+    load_kernel_state(view);
+    detail::fold_pending_updates(view.s);
+    store_kernel_state(view);
+  }
+  // Doubled lines; the extra padded_taps_ let a padded window start anywhere in the ring.
+  const size_t length = 2 * ring_size_ + padded_taps_;
+  line_x_.assign(length, 0.0);
+  line_bad_.assign(length, 0);
+  line_level_.assign(length, 0);
+  next_slot_ = 0;
+  last_bad_plus1_ = 0;
 }
 
 double Equalizer::output_at(uint64_t j) const {
@@ -172,6 +263,26 @@ Progress Equalizer::run(std::span<const float> in, const int8_t* levels, std::sp
                                         std::to_string(in.size()));
   }
   Progress progress;
+  if (!config_.reference_kernel) {
+    if (levels) {
+      for (size_t t = 0; t < in.size(); ++t) {
+        const int8_t a = levels[t];
+        if (a != 1 && a != -1 && a != 0) {
+          throw_usage("equalizer training levels", "value " + std::to_string(a) + " at " + std::to_string(t) +
+                                                       " is not +1, -1 or 0");
+        }
+      }
+    }
+    KernelView view;
+    load_kernel_state(view);
+    const size_t before = total_count_;
+    progress.produced = detail::run_span(view.s, in.data(), levels, erasure.empty() ? nullptr : erasure.data(),
+                                         padding, out.data(), in.size());
+    progress.consumed = in.size();
+    store_kernel_state(view);
+    if (levels && total_count_ != before) trained_ = true;
+    return progress;
+  }
   for (size_t t = 0; t < in.size(); ++t) {
     const float v = in[t];
     const size_t s = slot(n_in_);
@@ -239,9 +350,23 @@ void Equalizer::adapt_decided(uint64_t first_output, std::span<const int8_t> lev
     if (a != 1 && a != -1 && a != 0) {
       throw_usage("equalizer decisions", "value " + std::to_string(a) + " is not +1, -1 or 0");
     }
-    const uint64_t j = first_output + k;
-    level_[slot(j)] = a;
-    adapt_at(j, output_at(j), adapting());
+  }
+  if (config_.reference_kernel) {
+    for (size_t k = 0; k < levels.size(); ++k) {
+      const uint64_t j = first_output + k;
+      level_[slot(j)] = levels[k];
+      adapt_at(j, output_at(j), adapting());
+    }
+  } else {
+    KernelView view;
+    load_kernel_state(view);
+    for (size_t k = 0; k < levels.size(); ++k) {
+      const uint64_t j = first_output + k;
+      const size_t sj = slot(j);
+      line_level_[sj] = line_level_[sj + ring_size_] = levels[k];
+      detail::adapt_past(view.s, j, adapting());
+    }
+    store_kernel_state(view);
   }
   next_decision_ = last + 1;
 }

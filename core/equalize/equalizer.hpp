@@ -27,6 +27,16 @@
 // hardware loop with a fixed latency), so a caller that wants reproducible runs hands
 // decisions over at a fixed lag. Decisions for the last outputs of a span (those only
 // known after the detector's flush) cannot be applied once flush() has ended the span.
+//
+// Speed: by default the loops run in SIMD kernels (equalizer_kernels.hpp: Highway with
+// run-time dispatch, linear doubled delay lines, double precision as before). Filtering
+// (process, flush) equals the scalar reference bit for bit. Training still adapts on every
+// sample with the reference's updates, but computes each output from the taps of two
+// samples earlier plus the two pending updates' contributions (algebraically the same
+// output; the sums round differently), and the running MSE multiplies by 1/time constant
+// instead of dividing; outputs, taps and statistics agree with the reference to rounding
+// (tests/equalize/test_equalizer_simd.cpp bounds the difference). reference_kernel = true
+// selects the plain scalar loops, kept as the reference.
 
 #include <cstddef>
 #include <cstdint>
@@ -52,6 +62,7 @@ struct EqualizerConfig {
   bool freeze_after_training = false;  // decision-directed updates only measure the error
   size_t max_decision_latency = 256;   // how many outputs behind decisions may arrive, <= 65536
   double mse_time_constant = 1000.0;   // running MSE: exponential average over ~this many updates
+  bool reference_kernel = false;       // true: the scalar reference loops instead of the SIMD kernels
 };
 
 struct ErrorStats {
@@ -105,6 +116,11 @@ class Equalizer {
   bool desired_at(uint64_t j, double& d) const;
   void adapt_at(uint64_t j, double y, bool allow_update);
   size_t slot(uint64_t n) const { return static_cast<size_t>(n % ring_size_); }
+  // SIMD path: kernel state over this object's own buffers (rebuilt per call, so copies
+  // of the object stay independent), and the public taps refreshed from the kernel's.
+  struct KernelView;
+  void load_kernel_state(KernelView& v);
+  void store_kernel_state(const KernelView& v);
 
   EqualizerConfig config_;
   std::vector<double> w_;          // current taps, w_[i] multiplies x_{j+delay-i}
@@ -121,6 +137,15 @@ class Equalizer {
   bool running_started_ = false;
   double span_sum_ = 0.0, total_sum_ = 0.0;
   size_t span_count_ = 0, total_count_ = 0;
+  // SIMD path only (equalizer_kernels.hpp): doubled delay lines and reversed, padded taps.
+  std::vector<double> line_x_;
+  std::vector<uint8_t> line_bad_;
+  std::vector<int8_t> line_level_;
+  size_t next_slot_ = 0;
+  uint64_t last_bad_plus1_ = 0;
+  double pending_mu1_ = 0.0, pending_mu2_ = 0.0;  // see LmsKernelState
+  std::vector<double> w_rev_, update_mask_, window_mask_;
+  size_t padded_taps_ = 0;
 };
 
 // The written levels (+1/-1) behind NRZI channel bits (1 = a transition), starting from
