@@ -6,6 +6,8 @@
 
 #include <cstdio>
 
+#include <zlib.h>
+
 #include "common/error.hpp"
 
 namespace salvor::format {
@@ -50,20 +52,31 @@ Crc::Crc(const CrcParams& params) : params_(params) {
     // A CRC generator without the x^0 term is degenerate (a shifted CRC of lower width).
     throw_usage(where, "poly " + hex(params.poly) + " lacks the x^0 term");
   }
+  use_zlib_ = params.width == 32 && params.poly == 0x04C11DB7u && params.refin;
   if (params.refin) {
     const uint32_t rpoly = reflect(params.poly, params.width);
     for (uint32_t b = 0; b < 256; ++b) {
       uint32_t r = b;
       for (int k = 0; k < 8; ++k) r = (r & 1u) ? (r >> 1) ^ rpoly : r >> 1;
-      table_[b] = r;
+      tables_[0][b] = r;
     }
+    for (int k = 1; k < 8; ++k)
+      for (uint32_t b = 0; b < 256; ++b) {
+        const uint32_t prev = tables_[k - 1][b];
+        tables_[k][b] = (prev >> 8) ^ tables_[0][prev & 0xFFu];
+      }
   } else {
     const uint32_t top_poly = params.poly << (32 - params.width);
     for (uint32_t b = 0; b < 256; ++b) {
       uint32_t r = b << 24;
       for (int k = 0; k < 8; ++k) r = (r & 0x80000000u) ? (r << 1) ^ top_poly : r << 1;
-      table_[b] = r;
+      tables_[0][b] = r;
     }
+    for (int k = 1; k < 8; ++k)
+      for (uint32_t b = 0; b < 256; ++b) {
+        const uint32_t prev = tables_[k - 1][b];
+        tables_[k][b] = (prev << 8) ^ tables_[0][prev >> 24];
+      }
   }
 }
 
@@ -74,10 +87,33 @@ uint32_t Crc::start() const {
 }
 
 uint32_t Crc::update(uint32_t reg, std::span<const uint8_t> bytes) const {
+  const uint8_t* p = bytes.data();
+  size_t n = bytes.size();
+  const auto& t = tables_;
+  if (use_zlib_) {
+    // zlib keeps the same reflected register but complements it on entry and exit. It
+    // answers its initial value for a null buffer, so an empty chunk must not reach it.
+    if (n == 0) return reg;
+    return ~static_cast<uint32_t>(crc32_z(~reg & 0xFFFFFFFFu, p, n));
+  }
   if (params_.refin) {
-    for (uint8_t b : bytes) reg = (reg >> 8) ^ table_[(reg ^ b) & 0xFFu];
+    // Reflected register: the first message byte meets the low byte of the register.
+    for (; n >= 8; n -= 8, p += 8) {
+      const uint32_t a = (p[0] | p[1] << 8 | p[2] << 16 | static_cast<uint32_t>(p[3]) << 24) ^ reg;
+      const uint32_t b = p[4] | p[5] << 8 | p[6] << 16 | static_cast<uint32_t>(p[7]) << 24;
+      reg = t[7][a & 0xFFu] ^ t[6][(a >> 8) & 0xFFu] ^ t[5][(a >> 16) & 0xFFu] ^ t[4][a >> 24] ^
+            t[3][b & 0xFFu] ^ t[2][(b >> 8) & 0xFFu] ^ t[1][(b >> 16) & 0xFFu] ^ t[0][b >> 24];
+    }
+    for (; n > 0; --n) reg = (reg >> 8) ^ t[0][(reg ^ *p++) & 0xFFu];
   } else {
-    for (uint8_t b : bytes) reg = (reg << 8) ^ table_[((reg >> 24) ^ b) & 0xFFu];
+    // Top-aligned register: the first message byte meets the high byte of the register.
+    for (; n >= 8; n -= 8, p += 8) {
+      const uint32_t a = (static_cast<uint32_t>(p[0]) << 24 | p[1] << 16 | p[2] << 8 | p[3]) ^ reg;
+      const uint32_t b = static_cast<uint32_t>(p[4]) << 24 | p[5] << 16 | p[6] << 8 | p[7];
+      reg = t[7][a >> 24] ^ t[6][(a >> 16) & 0xFFu] ^ t[5][(a >> 8) & 0xFFu] ^ t[4][a & 0xFFu] ^
+            t[3][b >> 24] ^ t[2][(b >> 16) & 0xFFu] ^ t[1][(b >> 8) & 0xFFu] ^ t[0][b & 0xFFu];
+    }
+    for (; n > 0; --n) reg = (reg << 8) ^ t[0][((reg >> 24) ^ *p++) & 0xFFu];
   }
   return reg;
 }

@@ -2,7 +2,10 @@
 // Parameterised CRC in the Rocksoft model: R. N. Williams, "A Painless Guide to CRC Error
 // Detection Algorithms" (1993); parameter names and check values as in G. Cook,
 // "Catalogue of parametrised CRC algorithms" (reveng.sourceforge.io/crc-catalogue).
-// Table-driven, one byte per step, any width 8..32.
+// Table-driven, any width 8..32; eight bytes per step ("slicing-by-8": eight tables, the
+// register advanced by 64 bits with one lookup per byte), one byte per step for the tail.
+// The CRC-32 polynomial 0x04C11DB7 with reflected input (CRC-32/ISO-HDLC, JAMCRC...) is
+// computed by zlib's crc32 instead (any init/xorout), the speed reference for CRC-32.
 
 #include <array>
 #include <cstddef>
@@ -38,8 +41,10 @@ class Crc {
 
  private:
   CrcParams params_;
+  bool use_zlib_ = false;  // width 32, poly 0x04C11DB7, refin: zlib's crc32 on the register
   uint32_t mask_ = 0;
-  std::array<uint32_t, 256> table_{};
+  // tables_[0] is the classic byte table; tables_[k][b] advances byte b through k more zero bytes.
+  std::array<std::array<uint32_t, 256>, 8> tables_{};
 };
 
 // Check value of a CRC: the CRC of the ASCII string "123456789" (catalogue definition).

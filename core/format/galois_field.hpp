@@ -31,6 +31,7 @@ class GaloisField256 {
     return exp_[m];
   }
   int log(uint8_t a) const { return log_[a]; }  // a != 0
+  uint8_t exp_at(int e) const { return exp_[e]; }  // alpha^e for 0 <= e < 510, no reduction
   unsigned polynomial() const { return poly_; }
   std::string describe() const;
 

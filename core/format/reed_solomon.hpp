@@ -9,6 +9,10 @@
 // generator roots alpha^(prim*(fcr+i)), i = 0..nroots-1; a codeword is data[0..k-1] then
 // parity[0..nroots-1], symbol 0 the highest-degree coefficient; a shortened code (n < 255)
 // has 255-n virtual leading zeros. Bad data never throws: decode() reports failure.
+// Speed: decode() allocates nothing on the heap apart from RsDecodeResult::positions when
+// errata are located (scratch lives on the stack, so one object may be shared by threads);
+// syndromes use one multiply-by-constant table per root and the encoder one row of
+// generator products per feedback value (each parity_symbols x 256 bytes).
 
 #include <cstdint>
 #include <span>
@@ -61,12 +65,16 @@ class ReedSolomon {
   std::string describe() const;
 
  private:
-  // S_i = r(alpha^(prim*(fcr+i))); returns true when all are zero.
-  bool syndromes(std::span<const uint8_t> word, std::vector<uint8_t>& s) const;
+  // S_i = r(alpha^(prim*(fcr+i))) into s[0..parity_symbols-1]; returns true when all are zero.
+  bool syndromes(std::span<const uint8_t> word, uint8_t* s) const;
 
   ReedSolomonConfig config_;
   GaloisField256 gf_;
   std::vector<uint8_t> generator_;
+  // root_product_[i * 256 + v] = v * alpha^(prim*(fcr+i)): Horner steps without log lookups.
+  std::vector<uint8_t> root_product_;
+  // generator_product_[f * parity_symbols + i] = f * g[i+1]: one row per encoder feedback value.
+  std::vector<uint8_t> generator_product_;
 };
 
 }  // namespace salvor::format

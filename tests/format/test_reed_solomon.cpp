@@ -207,3 +207,39 @@ TEST(ReedSolomon, RefusesBadParameters) {
   EXPECT_THROW(ReedSolomon({0x11D, 0, 1, 16, 256}), salvor::Error);  // n > 255
   EXPECT_THROW(ReedSolomon({0x11D, 0, 1, 16, 16}), salvor::Error);   // no data symbols
 }
+
+TEST(ReedSolomon, MatchesLibfecDecodeRs8OnItsOwnCode) {
+  // libfec's fixed CCSDS codec decode_rs_8 / encode_rs_8 (conventional basis): (255,223),
+  // NROOTS 32, FCR 112, PRIM 11 (libfec fixed.h), field polynomial 0x187 (libfec
+  // gen_ccsds.c builds its tables with init_rs_char(8, 0x187, 112, 11, 32, 0)).
+  const ReedSolomon rs({0x187, 112, 11, 32, 255});
+  std::mt19937 rng(14);
+  for (int e = 0; e <= 16; ++e) {
+    for (int trial = 0; trial < 20; ++trial) {
+      const std::vector<uint8_t> data = random_bytes(rng, 223);
+      const std::vector<uint8_t> codeword = rs.encode(data);
+      std::vector<uint8_t> theirs_clean = codeword;
+      encode_rs_8(theirs_clean.data(), theirs_clean.data() + 223, 0);
+      ASSERT_EQ(theirs_clean, codeword) << "encoder";
+      std::vector<uint8_t> received = codeword;
+      std::vector<int> pos = random_positions(rng, 255, e);
+      for (int p : pos) received[p] ^= static_cast<uint8_t>(1 + rng() % 255);
+
+      std::vector<uint8_t> ours = received;
+      const RsDecodeResult res = rs.decode(ours);
+      std::vector<uint8_t> theirs = received;
+      std::vector<int> located(32, -1);
+      const int count = decode_rs_8(theirs.data(), located.data(), 0, 0);
+      ASSERT_TRUE(res.ok) << "e=" << e;
+      EXPECT_EQ(ours, codeword) << "e=" << e;
+      EXPECT_EQ(ours, theirs) << "e=" << e;
+      EXPECT_EQ(res.corrected, count) << "e=" << e;
+      EXPECT_EQ(res.located, e);
+      located.resize(static_cast<size_t>(std::max(count, 0)));
+      std::sort(located.begin(), located.end());
+      std::sort(pos.begin(), pos.end());
+      EXPECT_EQ(res.positions, pos) << "e=" << e;
+      EXPECT_EQ(located, pos) << "libfec's located positions, e=" << e;
+    }
+  }
+}
