@@ -6,6 +6,7 @@
 #include <sstream>
 
 #include "common/error.hpp"
+#include "trellis/kernels.hpp"
 
 namespace salvor::trellis {
 
@@ -20,7 +21,6 @@ const MaxLogMapConfig& validated(const MaxLogMapConfig& c) {
   if (!std::isfinite(c.noise_sigma)) throw_usage("noise_sigma", "value is not a finite number");
   return c;
 }
-constexpr double kNegInf = -std::numeric_limits<double>::infinity();
 }  // namespace
 
 MaxLogMap::MaxLogMap(std::span<const double> target, const MaxLogMapConfig& config)
@@ -31,97 +31,66 @@ MaxLogMap::MaxLogMap(std::span<const double> target, const MaxLogMapConfig& conf
   const size_t S = static_cast<size_t>(S_);
   y_.assign(capacity_, 0.0f);
   erased_.assign(capacity_, 0);
-  alpha_start_.assign(S, 0.0);
-  alpha_.assign(capacity_ * S, 0.0);
-  beta_.assign(S, 0.0);
-  beta_prev_.assign(S, 0.0);
-  gamma_.assign(2 * S, 0.0);
-  raw_.assign(capacity_, 0.0);
-  best_residual_.assign(capacity_, 0.0);
+  alpha_start_.assign(S, 0.0f);
+  alpha_.assign(capacity_ * S, 0.0f);
+  beta_.assign(S, 0.0f);
+  raw_.assign(capacity_, 0.0f);
+  best_branch_.assign(capacity_, 0);
+  y_lin_.assign(capacity_, 0.0f);
+  erased_lin_.assign(capacity_, 0);
+  out0f_.resize(S);
+  out1f_.resize(S);
+  nrzi0_.resize(S);
+  nrzi1_.resize(S);
+  for (int s = 0; s < S_; ++s) {
+    out0f_[s] = static_cast<float>(trellis_.output(0, s));
+    out1f_[s] = static_cast<float>(trellis_.output(1, s));
+    nrzi0_[s] = trellis_.nrzi(0, s);
+    nrzi1_[s] = trellis_.nrzi(1, s);
+  }
 }
 
 // Forward over the first `emit` buffered steps (storing alpha), backward from step
 // `total` (all states equal there), LLRs of the first `emit` steps.
 void MaxLogMap::run(size_t emit, size_t total, std::span<uint8_t> bits, std::span<float> llr) {
   const int S = S_;
-  const uint8_t* p0 = trellis_.pred_row(0);
-  const uint8_t* p1 = trellis_.pred_row(1);
-  const double* o0 = trellis_.output_row(0);
-  const double* o1 = trellis_.output_row(1);
-  auto branch_metrics = [&](size_t t) {
+  for (size_t t = 0; t < total; ++t) {
     const size_t slot = (head_ + t) % capacity_;
-    const double y = y_[slot];
-    if (erased_[slot]) {
-      std::fill(gamma_.begin(), gamma_.end(), 0.0);
-      return;
-    }
-    for (int s = 0; s < S; ++s) {
-      const double e0 = y - o0[s], e1 = y - o1[s];
-      gamma_[s] = -e0 * e0;
-      gamma_[S + s] = -e1 * e1;
-    }
-  };
-  // Forward.
-  for (size_t t = 0; t < emit; ++t) {
-    branch_metrics(t);
-    const double* prev = t == 0 ? alpha_start_.data() : &alpha_[(t - 1) * S];
-    double* cur = &alpha_[t * S];
-    double best = kNegInf;
-    for (int s = 0; s < S; ++s) {
-      const double v = std::max(prev[p0[s]] + gamma_[s], prev[p1[s]] + gamma_[S + s]);
-      cur[s] = v;
-      best = std::max(best, v);
-    }
-    for (int s = 0; s < S; ++s) cur[s] -= best;  // renormalise
+    y_lin_[t] = y_[slot];
+    erased_lin_[t] = erased_[slot];
   }
-  // Backward.
-  std::fill(beta_.begin(), beta_.end(), 0.0);
-  for (size_t t = total; t-- > 0;) {
-    branch_metrics(t);
-    if (t < emit) {
-      const double* a = t == 0 ? alpha_start_.data() : &alpha_[(t - 1) * S];
-      double best1 = kNegInf, best0 = kNegInf, best = kNegInf;
-      double best_out = 0.0;
-      for (int j = 0; j < 2; ++j) {
-        const uint8_t* pr = j ? p1 : p0;
-        for (int s = 0; s < S; ++s) {
-          const double v = a[pr[s]] + gamma_[j * S + s] + beta_[s];
-          if (trellis_.nrzi(j, s)) best1 = std::max(best1, v);
-          else best0 = std::max(best0, v);
-          if (v > best) {
-            best = v;
-            best_out = trellis_.output(j, s);
-          }
-        }
-      }
-      raw_[t] = best1 - best0;
-      const size_t slot = (head_ + t) % capacity_;
-      best_residual_[t] = erased_[slot] ? -1.0 : (y_[slot] - best_out) * (y_[slot] - best_out);
-    }
-    std::fill(beta_prev_.begin(), beta_prev_.end(), kNegInf);
-    for (int j = 0; j < 2; ++j) {
-      const uint8_t* pr = j ? p1 : p0;
-      for (int s = 0; s < S; ++s) {
-        const double v = beta_[s] + gamma_[j * S + s];
-        double& dst = beta_prev_[pr[s]];
-        dst = std::max(dst, v);
-      }
-    }
-    const double best = *std::max_element(beta_prev_.begin(), beta_prev_.end());
-    for (int s = 0; s < S; ++s) beta_[s] = beta_prev_[s] - best;
+  const MaxLogTables tab{S, out0f_.data(), out1f_.data(), nrzi0_.data(), nrzi1_.data()};
+  // The best branch is only needed for the noise estimate.
+  uint16_t* best = config_.noise_sigma > 0.0 ? nullptr : best_branch_.data();
+  if (config_.simd) {
+    maxlog_forward_simd(tab, alpha_start_.data(), y_lin_.data(), erased_lin_.data(), emit,
+                        alpha_.data());
+    std::fill(beta_.begin(), beta_.end(), 0.0f);
+    maxlog_backward_simd(tab, alpha_start_.data(), alpha_.data(), y_lin_.data(),
+                         erased_lin_.data(), total, emit, beta_.data(), raw_.data(), best);
+  } else {
+    maxlog_forward_scalar(tab, alpha_start_.data(), y_lin_.data(), erased_lin_.data(), emit,
+                          alpha_.data());
+    std::fill(beta_.begin(), beta_.end(), 0.0f);
+    maxlog_backward_scalar(tab, alpha_start_.data(), alpha_.data(), y_lin_.data(),
+                           erased_lin_.data(), total, emit, beta_.data(), raw_.data(), best);
   }
-  for (size_t t = 0; t < emit; ++t)
-    if (best_residual_[t] >= 0.0) {
-      residual_sum_ += best_residual_[t];
+  if (best) {
+    for (size_t t = 0; t < emit; ++t) {
+      if (erased_lin_[t]) continue;
+      const int b = best_branch_[t];
+      const double e = static_cast<double>(y_lin_[t]) - trellis_.output(b / S, b % S);
+      residual_sum_ += e * e;
       ++residual_count_;
     }
+  }
   double var = config_.noise_sigma > 0.0 ? config_.noise_sigma * config_.noise_sigma
                : residual_count_ ? residual_sum_ / static_cast<double>(residual_count_)
                                  : 1.0;
   const double scale = 0.5 / std::max(var, 1e-12);
   for (size_t t = 0; t < emit; ++t) {
     const double v = std::clamp(raw_[t] * scale, -double(kLlrCap), double(kLlrCap));
-    bits[t] = raw_[t] > 0.0 ? 1 : 0;
+    bits[t] = raw_[t] > 0.0f ? 1 : 0;
     llr[t] = static_cast<float>(v);
   }
   // Carry the forward metrics; drop the released samples.
@@ -168,7 +137,7 @@ size_t MaxLogMap::flush(std::span<uint8_t> bits, std::span<float> llr) {
 }
 
 void MaxLogMap::clear_span() {
-  std::fill(alpha_start_.begin(), alpha_start_.end(), 0.0);
+  std::fill(alpha_start_.begin(), alpha_start_.end(), 0.0f);
   head_ = 0;
   count_ = 0;
 }

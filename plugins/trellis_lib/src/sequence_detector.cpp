@@ -1,11 +1,13 @@
 #include "trellis/sequence_detector.hpp"
 
 #include <algorithm>
+#include <bit>
 #include <cmath>
 #include <limits>
 #include <sstream>
 
 #include "common/error.hpp"
+#include "trellis/kernels.hpp"
 
 namespace salvor::trellis {
 
@@ -60,19 +62,28 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
       pd_estimator_(config.kind == MetricKind::pattern_dependent ? N_ : 0,
                     config.kind == MetricKind::pattern_dependent ? config.pattern_bits : 1) {
   const size_t S = static_cast<size_t>(S_);
-  pm_.assign(S, 0.0);
-  pm_next_.assign(S, 0.0);
-  hist_.assign(static_cast<size_t>(N_) * S, 0.0);
-  hist_next_.assign(hist_.size(), 0.0);
-  branch_scratch_.assign(std::max<size_t>(S, trellis_.distinct_outputs().size()), 0.0);
+  histf_.assign(static_cast<size_t>(N_) * S, 0.0f);
   decisions_.assign(window_, 0);
   delta_.assign(config_.reliability ? window_ * S : 0, 0.0f);
   y_.assign(window_, 0.0f);
   erased_.assign(window_, 0);
-  path_state_.assign(window_, 0);
-  path_branch_.assign(window_, 0);
-  path_bit_.assign(window_, 0);
-  path_rel_.assign(window_, 0.0f);
+  // Padded both sides: the SIMD SOVA kernel reads whole vectors around the window.
+  const size_t padded = kPathPad + window_ + kSovaPad;
+  path_state_.assign(padded, 0);
+  path_branch_.assign(padded, 0);
+  path_bit_.assign(padded, 0);
+  path_rel_.assign(padded, 0.0f);
+  path_dec_.assign(padded, 0);
+  path_delta_.assign(padded, 0.0f);
+  path_slot_.assign(window_, 0);
+  euclidean_ = config_.kind == MetricKind::euclidean;
+  pmf_.assign(S, 0.0f);
+  out0f_.resize(S);
+  out1f_.resize(S);
+  for (int s = 0; s < S_; ++s) {
+    out0f_[s] = static_cast<float>(trellis_.output(0, s));
+    out1f_[s] = static_cast<float>(trellis_.output(1, s));
+  }
   decided_noise_.assign(static_cast<size_t>(N_), 0.0);
   if (config_.kind == MetricKind::pattern_dependent) {
     const int mask = (1 << config_.pattern_bits) - 1;
@@ -82,6 +93,7 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
         pattern_of_[j][s] = static_cast<uint8_t>(trellis_.branch_word(j, s) & mask);
     }
   }
+  install_tables();
 }
 
 void SequenceDetector::train(std::span<const float> samples, std::span<const uint8_t> known_bits,
@@ -147,74 +159,62 @@ void SequenceDetector::train(std::span<const float> samples, std::span<const uin
     pattern_model_ = pd_estimator_.solve(32);  // fewer than 32 samples: pooled model
   trained_ = true;
   model_ready_ = true;
+  install_tables();
 }
 
-void SequenceDetector::step(float y, bool erased) {
-  const int S = S_;
-  const uint8_t* p0 = trellis_.pred_row(0);
-  const uint8_t* p1 = trellis_.pred_row(1);
-  const double* o0 = trellis_.output_row(0);
-  const double* o1 = trellis_.output_row(1);
-  const size_t slot = (head_ + count_) % window_;
-  float* delta = config_.reliability ? &delta_[slot * S] : nullptr;
-  uint32_t dec = 0;
-
-  // Branch metric of branch (j, s) from predecessor p.
-  double* scratch = branch_scratch_.data();
-  const bool use_model = model_ready_ && config_.kind != MetricKind::euclidean;
-  if (!erased && !use_model) {
-    // Once per distinct noiseless output.
-    const auto& distinct = trellis_.distinct_outputs();
-    for (size_t d = 0; d < distinct.size(); ++d) {
-      const double e = y - distinct[d];
-      scratch[d] = e * e;
+void SequenceDetector::steps_float(size_t slot, size_t n) {
+  float* delta = config_.reliability ? &delta_[slot * S_] : nullptr;
+  const size_t phase = span_steps_ % kRenormInterval;
+  if (euclidean_) {
+    const EuclideanAcs t{S_, out0f_.data(), out1f_.data()};
+    (config_.simd ? viterbi_euclidean_simd : viterbi_euclidean_scalar)(
+        t, pmf_.data(), phase, &y_[slot], &erased_[slot], n, &decisions_[slot], delta);
+  } else {
+    PredictiveAcs t;
+    t.states = S_;
+    t.order = N_;
+    const size_t S = static_cast<size_t>(S_), NS = static_cast<size_t>(N_) * S;
+    for (int j = 0; j < 2; ++j) {
+      t.out[j] = j ? out1f_.data() : out0f_.data();
+      t.bias[j] = &metric_tables_[j * S];
+      t.log_var[j] = &metric_tables_[(2 + j) * S];
+      t.inv_var[j] = &metric_tables_[(4 + j) * S];
+      t.coef[j] = &metric_tables_[6 * S + j * NS];
     }
-  } else if (!erased && config_.kind == MetricKind::noise_predictive) {
-    // Predicted noise of each predecessor's survivor, once per state.
-    for (int s = 0; s < S; ++s) {
-      double acc = 0.0;
-      for (int i = 0; i < N_; ++i) acc += predictor_.coef[i] * hist_[i * S + s];
-      scratch[s] = acc;
-    }
+    (config_.simd ? viterbi_predictive_simd : viterbi_predictive_scalar)(
+        t, pmf_.data(), histf_.data(), phase, &y_[slot], &erased_[slot], n, &decisions_[slot],
+        delta);
   }
-  auto metric = [&](int j, int s, int p, double out) -> double {
-    if (erased) return 0.0;
-    if (!use_model) return scratch[trellis_.output_index(j, s)];
-    if (config_.kind == MetricKind::noise_predictive) {
-      const double e = y - out - scratch[p];
-      return e * e;
-    }
-    const int c = pattern_of_[j][s];
-    const PatternNoiseModel& m = pattern_model_;
-    double e = y - out - m.bias[c];
-    for (int i = 0; i < N_; ++i) e -= m.coef[c * N_ + i] * hist_[i * S + p];
-    return m.log_variance[c] + e * e * m.inv_variance[c];
-  };
+  span_steps_ += n;
+  count_ += n;
+}
 
-  double best = std::numeric_limits<double>::infinity();
-  for (int s = 0; s < S; ++s) {
-    const int a = p0[s], b = p1[s];
-    const double m0 = pm_[a] + metric(0, s, a, o0[s]);
-    const double m1 = pm_[b] + metric(1, s, b, o1[s]);
-    const bool take1 = m1 < m0;  // ties keep branch 0: deterministic
-    const double m = take1 ? m1 : m0;
-    pm_next_[s] = m;
-    best = std::min(best, m);
-    dec |= static_cast<uint32_t>(take1) << s;
-    if (delta) delta[s] = static_cast<float>(std::abs(m0 - m1));
-    if (N_ > 0) {
-      const int p = take1 ? b : a;
-      hist_next_[s] = erased ? 0.0 : y - (take1 ? o1[s] : o0[s]);
-      for (int i = 1; i < N_; ++i) hist_next_[i * S + s] = hist_[(i - 1) * S + p];
+// Float per-branch tables of the installed noise model (or of the plain Euclidean metric
+// when none is installed yet): bias, log variance, inverse variance, coefficients.
+void SequenceDetector::install_tables() {
+  if (euclidean_) return;
+  const size_t S = static_cast<size_t>(S_), N = static_cast<size_t>(N_);
+  metric_tables_.assign(6 * S + 2 * N * S, 0.0f);
+  for (int j = 0; j < 2; ++j)
+    for (size_t s = 0; s < S; ++s) {
+      float bias = 0.0f, log_var = 0.0f, inv_var = 1.0f;
+      float coef[kMaxPredictorOrder] = {0.0f, 0.0f, 0.0f, 0.0f};
+      if (model_ready_ && config_.kind == MetricKind::noise_predictive) {
+        for (size_t i = 0; i < N && i < predictor_.coef.size(); ++i)
+          coef[i] = static_cast<float>(predictor_.coef[i]);
+      } else if (model_ready_ && config_.kind == MetricKind::pattern_dependent) {
+        const int c = pattern_of_[j][s];
+        const PatternNoiseModel& m = pattern_model_;
+        bias = static_cast<float>(m.bias[c]);
+        log_var = static_cast<float>(m.log_variance[c]);
+        inv_var = static_cast<float>(m.inv_variance[c]);
+        for (size_t i = 0; i < N; ++i) coef[i] = static_cast<float>(m.coef[c * N + i]);
+      }
+      metric_tables_[j * S + s] = bias;
+      metric_tables_[(2 + j) * S + s] = log_var;
+      metric_tables_[(4 + j) * S + s] = inv_var;
+      for (size_t i = 0; i < N; ++i) metric_tables_[6 * S + j * N * S + i * S + s] = coef[i];
     }
-  }
-  for (int s = 0; s < S; ++s) pm_next_[s] -= best;  // renormalise
-  pm_.swap(pm_next_);
-  if (N_ > 0) hist_.swap(hist_next_);
-  decisions_[slot] = dec;
-  y_[slot] = y;
-  erased_[slot] = erased ? 1 : 0;
-  ++count_;
 }
 
 double SequenceDetector::llr_scale() const {
@@ -229,47 +229,92 @@ double SequenceDetector::llr_scale() const {
   return 0.5 / std::max(var, 1e-12);
 }
 
+// Follows the best survivor back through the `n` steps of the window.
+void SequenceDetector::trace_back(size_t n) {
+  int s = static_cast<int>(std::min_element(pmf_.begin(), pmf_.end()) - pmf_.begin());
+  const int m = trellis_.memory();
+  // Local pointers: byte stores may alias anything, so members would be reloaded.
+  uint32_t* dec = path_dec_.data() + kPathPad;
+  uint16_t* slots = path_slot_.data();
+  uint8_t* states = path_state_.data() + kPathPad;
+  uint8_t* branches = path_branch_.data() + kPathPad;
+  uint8_t* nrzi = path_bit_.data() + kPathPad;
+  const uint32_t* ring = decisions_.data();
+  // The window is a ring: steps [0, first) sit at slots head_.., the rest from slot 0.
+  const size_t first = std::min(n, window_ - head_);
+  std::copy_n(ring + head_, first, dec);
+  std::copy_n(ring, n - first, dec + first);
+  for (size_t t = 0; t < first; ++t) slots[t] = static_cast<uint16_t>(head_ + t);
+  for (size_t t = first; t < n; ++t) slots[t] = static_cast<uint16_t>(t - first);
+  // Serial: about 3.5 cycles per step; tracing from all states at once in SIMD lanes
+  // while this runs was measured slower.
+  for (size_t t = n; t-- > 0;) {
+    const unsigned j = (dec[t] >> s) & 1u;
+    states[t] = static_cast<uint8_t>(s);
+    branches[t] = static_cast<uint8_t>(j);
+    // Off the serial chain: NRZI bit = x_t xor x_(t-1), bits 0 and 1 of the branch word.
+    const unsigned word = static_cast<unsigned>(s) | (j << m);
+    nrzi[t] = static_cast<uint8_t>((word ^ (word >> 1)) & 1u);
+    s = (s >> 1) | static_cast<int>(j << (m - 1));
+  }
+}
+
+// Hagenauer-Hoeher update: each merge on the survivor lowers the reliability of the bits
+// on which the competitor (followed back until it meets the survivor) disagrees. Only
+// the first `emit` bits are released, so only merges that can reach them are followed
+// (steps t < emit + window - 1), and a merge whose Delta is at or above the LLR cap
+// cannot lower any released magnitude (min(cap, min(r, Delta) * scale) = min(cap,
+// r * scale) when Delta * scale >= cap), so it is skipped.
+void SequenceDetector::sova(size_t n, size_t emit, double scale) {
+  const float inf = std::numeric_limits<float>::infinity();
+  float* rel = path_rel_.data() + kPathPad;
+  std::fill(rel, rel + n, inf);
+  const size_t U = static_cast<size_t>(config_.reliability_window);
+  const size_t last = std::min(n, emit + U - 1);
+  const int S = S_;
+  const uint8_t* states = path_state_.data() + kPathPad;
+  const uint16_t* slots = path_slot_.data();
+  float* delta = path_delta_.data() + kPathPad;
+  for (size_t t = 0; t < last; ++t) {
+    const float d = delta_[slots[t] * S + states[t]];
+    const float choice[2] = {d, inf};  // indexed, not branched: about half are skipped
+    delta[t] = choice[static_cast<double>(d) * scale >= kLlrCap];
+  }
+  const SovaPath path{trellis_.memory(), path_dec_.data() + kPathPad, states,
+                      path_branch_.data() + kPathPad, path_bit_.data() + kPathPad, delta};
+  (config_.simd ? sova_simd : sova_scalar)(path, last, U, rel);
+}
+
 void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<float> llr) {
   const size_t n = count_;
-  const int S = S_;
-  // Trace the best survivor back through the whole window.
-  int s = static_cast<int>(std::min_element(pm_.begin(), pm_.end()) - pm_.begin());
-  for (size_t t = n; t-- > 0;) {
-    const size_t slot = (head_ + t) % window_;
-    const int j = (decisions_[slot] >> s) & 1;
-    path_state_[t] = static_cast<uint8_t>(s);
-    path_branch_[t] = static_cast<uint8_t>(j);
-    path_bit_[t] = trellis_.nrzi(j, s);
-    s = trellis_.pred(j, s);
-  }
-  // Hagenauer-Hoeher update: each merge on the survivor lowers the reliability of the
-  // bits on which the competitor (followed back until it meets the survivor) disagrees.
-  if (config_.reliability) {
-    const float inf = std::numeric_limits<float>::infinity();
-    std::fill(path_rel_.begin(), path_rel_.begin() + static_cast<long>(n), inf);
-    const size_t U = static_cast<size_t>(config_.reliability_window);
-    for (size_t t = n; t-- > 0;) {
-      const size_t slot = (head_ + t) % window_;
-      const int st = path_state_[t];
-      const int jc = 1 - path_branch_[t];
-      const float d = delta_[slot * S + st];
-      if (trellis_.nrzi(jc, st) != path_bit_[t]) path_rel_[t] = std::min(path_rel_[t], d);
-      int c = trellis_.pred(jc, st);
-      const size_t stop = t + 1 > U ? t + 1 - U : 0;
-      for (size_t u = t; u-- > stop;) {
-        if (c == path_state_[u]) break;  // merged: the rest agrees
-        const size_t su = (head_ + u) % window_;
-        const int jj = (decisions_[su] >> c) & 1;
-        if (trellis_.nrzi(jj, c) != path_bit_[u]) path_rel_[u] = std::min(path_rel_[u], d);
-        c = trellis_.pred(jj, c);
-      }
-    }
-  }
+  trace_back(n);
   // Estimates from the released part of the decided path.
   const bool adapting = config_.adapt && !trained_ && config_.kind != MetricKind::euclidean;
-  for (size_t t = 0; t < emit; ++t) {
-    const size_t slot = (head_ + t) % window_;
-    const int st = path_state_[t], j = path_branch_[t];
+  // Local accumulators (same order of additions) keep the sums out of memory.
+  double residual_sum = residual_sum_;
+  size_t residual_count = residual_count_;
+  // The Euclidean residual only serves the sigma estimate, unused when sigma is given.
+  if (euclidean_ && config_.noise_sigma <= 0.0) {
+    // No noise model: only the residual of the decided path (same sums as below).
+    const double* out[2] = {trellis_.output_row(0), trellis_.output_row(1)};
+    const uint16_t* slots = path_slot_.data();
+    const uint8_t* states = path_state_.data() + kPathPad;
+    const uint8_t* branches = path_branch_.data() + kPathPad;
+    // Four partial sums break the chain of dependent additions; the grouping depends
+    // only on the position in the block, so the sum is the same for any chunking.
+    double part[4] = {0.0, 0.0, 0.0, 0.0};
+    for (size_t t = 0; t < emit; ++t) {
+      const size_t slot = slots[t];
+      const double e = static_cast<double>(y_[slot]) - out[branches[t]][states[t]];
+      const bool kept = erased_[slot] == 0;
+      part[t & 3] += kept ? e * e : 0.0;
+      residual_count += kept;
+    }
+    residual_sum += (part[0] + part[1]) + (part[2] + part[3]);
+  }
+  for (size_t t = 0; t < (euclidean_ ? 0 : emit); ++t) {
+    const size_t slot = path_slot_[t];
+    const int st = path_state_[kPathPad + t], j = path_branch_[kPathPad + t];
     const bool erased = erased_[slot] != 0;
     const double n_t = static_cast<double>(y_[slot]) - trellis_.output(j, st);
     double e = n_t;
@@ -281,8 +326,8 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
       for (int i = 0; i < N_; ++i) e -= pattern_model_.coef[c * N_ + i] * decided_noise_[i];
     }
     if (!erased) {
-      residual_sum_ += e * e;
-      ++residual_count_;
+      residual_sum += e * e;
+      ++residual_count;
       if (adapting && decided_valid_ >= N_) {
         if (config_.kind == MetricKind::noise_predictive)
           np_estimator_.add(n_t, decided_noise_);
@@ -296,6 +341,8 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
       decided_valid_ = erased ? 0 : std::min(N_, decided_valid_ + 1);
     }
   }
+  residual_sum_ = residual_sum;
+  residual_count_ = residual_count;
   if (adapting) {
     const size_t have = config_.kind == MetricKind::noise_predictive ? np_estimator_.count()
                                                                       : pd_estimator_.count();
@@ -305,9 +352,11 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
       else
         pattern_model_ = pd_estimator_.solve(32);
       model_ready_ = true;
+      install_tables();
     }
   }
   const double scale = llr_scale();
+  if (config_.reliability) sova(n, emit, scale);
   double fixed = kLlrCap;
   if (!config_.reliability) {
     double var = config_.noise_sigma > 0.0 ? config_.noise_sigma * config_.noise_sigma
@@ -315,11 +364,23 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
                                    : 1.0;
     fixed = std::min<double>(kLlrCap, 2.0 * d2min_ / std::max(var, 1e-12));
   }
-  for (size_t t = 0; t < emit; ++t) {
-    bits[t] = path_bit_[t];
-    double mag = config_.reliability ? std::min<double>(kLlrCap, path_rel_[t] * scale) : fixed;
-    llr[t] = static_cast<float>(path_bit_[t] ? mag : -mag);
+  // Sign from the bit without a branch (the bits are random, a branch would mispredict).
+  const uint8_t* __restrict decided = path_bit_.data() + kPathPad;
+  float* __restrict out_llr = llr.data();
+  if (config_.reliability) {
+    const float* __restrict rel = path_rel_.data() + kPathPad;
+    for (size_t t = 0; t < emit; ++t) {
+      const double v = rel[t] * scale;
+      const float mag = static_cast<float>(v < kLlrCap ? v : double{kLlrCap});
+      out_llr[t] = std::bit_cast<float>(std::bit_cast<uint32_t>(mag) |
+                                        (static_cast<uint32_t>(decided[t] ^ 1u) << 31));
+    }
+  } else {
+    const uint32_t mag = std::bit_cast<uint32_t>(static_cast<float>(fixed));
+    for (size_t t = 0; t < emit; ++t)
+      out_llr[t] = std::bit_cast<float>(mag | (static_cast<uint32_t>(decided[t] ^ 1u) << 31));
   }
+  std::copy_n(decided, emit, bits.data());
   head_ = (head_ + emit) % window_;
   count_ -= emit;
 }
@@ -338,13 +399,32 @@ Progress SequenceDetector::process(std::span<const float> samples,
       throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
   const size_t D = static_cast<size_t>(config_.traceback_depth);
   Progress p;
-  for (; p.consumed < samples.size(); ++p.consumed) {
-    if (count_ + 1 == window_ && bits.size() - p.produced < D) break;  // no room to release
-    const bool erased = !erasure.empty() && erasure[p.consumed] != 0;
-    step(erased ? 0.0f : samples[p.consumed], erased);
-    if (count_ == window_) {
-      release(D, bits.subspan(p.produced, D), llr.subspan(p.produced, D));
-      p.produced += D;
+  {
+    // Runs of steps up to the next release (or the end of the ring), in one kernel call.
+    while (p.consumed < samples.size()) {
+      const bool room = bits.size() - p.produced >= D;
+      const size_t slot = (head_ + count_) % window_;
+      size_t n = std::min({samples.size() - p.consumed, window_ - count_, window_ - slot});
+      if (!room) n = std::min(n, window_ - 1 - count_);  // stop short of a release
+      if (n == 0) break;
+      float* ring_y = &y_[slot];
+      uint8_t* ring_erased = &erased_[slot];
+      if (erasure.empty()) {
+        std::copy_n(samples.data() + p.consumed, n, ring_y);
+        std::fill_n(ring_erased, n, uint8_t{0});
+      } else {
+        for (size_t i = 0; i < n; ++i) {
+          const bool erased = erasure[p.consumed + i] != 0;
+          ring_y[i] = erased ? 0.0f : samples[p.consumed + i];
+          ring_erased[i] = erased ? 1 : 0;
+        }
+      }
+      steps_float(slot, n);
+      p.consumed += n;
+      if (count_ == window_) {
+        release(D, bits.subspan(p.produced, D), llr.subspan(p.produced, D));
+        p.produced += D;
+      }
     }
   }
   return p;
@@ -361,8 +441,9 @@ size_t SequenceDetector::flush(std::span<uint8_t> bits, std::span<float> llr) {
 }
 
 void SequenceDetector::clear_span() {
-  std::fill(pm_.begin(), pm_.end(), 0.0);
-  std::fill(hist_.begin(), hist_.end(), 0.0);
+  std::fill(pmf_.begin(), pmf_.end(), 0.0f);
+  span_steps_ = 0;
+  std::fill(histf_.begin(), histf_.end(), 0.0f);
   std::fill(decided_noise_.begin(), decided_noise_.end(), 0.0);
   decided_valid_ = 0;
   head_ = 0;
@@ -379,6 +460,7 @@ void SequenceDetector::reset() {
     pd_estimator_.clear();
     predictor_ = LinearPredictor{};
     pattern_model_ = PatternNoiseModel{};
+    install_tables();
   }
 }
 

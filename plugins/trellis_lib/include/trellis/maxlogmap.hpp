@@ -18,6 +18,7 @@
 // (flush). So at most block_length + overlap - 1 bits are held back. Block boundaries
 // depend only on the step count: any chunking gives the same output.
 //
+// Arithmetic: float, through the kernels of trellis/kernels.hpp.
 // Scaling: metrics are computed as -(y - yhat)^2 and the difference is divided by 2 s2
 // at the end (max-log decisions do not depend on s2). s2 = noise_sigma^2 if known, else
 // the mean square of (y - yhat) on the best branch of each released step, accumulated
@@ -37,6 +38,9 @@ struct MaxLogMapConfig {
   int block_length = 256;   // bits released per block; 16..4096
   int overlap = 64;         // backward warm-up bits; 0..1024 (0: every block ends "open")
   double noise_sigma = 0.0; // rms noise at the input; <= 0: estimate (see above)
+  // Run the recursions with the run-time dispatched SIMD kernels (true) or their scalar
+  // references (false); both give the same bits and LLRs.
+  bool simd = true;
 };
 
 class MaxLogMap {
@@ -71,11 +75,15 @@ class MaxLogMap {
   std::vector<uint8_t> erased_;
   size_t head_ = 0, count_ = 0;
 
-  std::vector<double> alpha_start_;  // forward metrics before the first buffered sample
-  std::vector<double> alpha_;        // [t * S + s] after step t of the block
-  std::vector<double> beta_, beta_prev_, gamma_;
-  std::vector<double> raw_;          // unscaled LLR differences of the block
-  std::vector<double> best_residual_;
+  std::vector<float> alpha_start_;  // forward metrics before the first buffered sample
+  std::vector<float> alpha_;        // [t * S + s] after step t of the block
+  std::vector<float> beta_;
+  std::vector<float> raw_;          // unscaled LLR differences of the block
+  std::vector<uint16_t> best_branch_;  // j * S + s of the best branch per step
+  std::vector<float> y_lin_;        // the buffered samples in step order
+  std::vector<uint8_t> erased_lin_;
+  std::vector<float> out0f_, out1f_;
+  std::vector<uint8_t> nrzi0_, nrzi1_;
 
   double residual_sum_ = 0.0;
   size_t residual_count_ = 0;

@@ -23,8 +23,10 @@
 // Streaming: decisions are packed one bit per state in a 32-bit word per step, kept in a
 // window of 2 * traceback_depth steps. When the window is full, the best survivor is
 // traced back and the oldest traceback_depth bits are released (block traceback); so
-// at most 2 * traceback_depth - 1 bits are held back. Path metrics are renormalised
-// (minimum subtracted) after every step. A span starts with every state equally likely
+// at most 2 * traceback_depth - 1 bits are held back. The add-compare-select runs in
+// float through the kernels of trellis/kernels.hpp (minimum subtracted after every 8th
+// step of the span); noise models are estimated in double. A span
+// starts with every state equally likely
 // (no assumption about the levels before the first sample) and flush() traces back from
 // the best final state. Block boundaries depend only on the step count, so any chunking
 // of the input gives the same bits and LLRs.
@@ -56,6 +58,9 @@ struct SequenceDetectorConfig {
   int pattern_bits = 3;         // pattern_dependent: levels x_k..x_(k-P+1) in a pattern, 1..6
   bool adapt = false;           // noise models: estimate from decisions while untrained
   size_t adapt_min_samples = 2048;  // decided samples before the first adapted model
+  // Run the add-compare-select and the SOVA update with the run-time dispatched SIMD
+  // kernels (true) or their scalar references (false). Both give the same bits and LLRs.
+  bool simd = true;
 };
 
 class SequenceDetector {
@@ -88,7 +93,11 @@ class SequenceDetector {
   std::string describe() const;
 
  private:
-  void step(float y, bool erased);
+  // `n` add-compare-select steps on samples already stored in the ring at `slot`.
+  void steps_float(size_t slot, size_t n);
+  void install_tables();
+  void trace_back(size_t n);
+  void sova(size_t n, size_t emit, double scale);
   void release(size_t emit, std::span<uint8_t> bits, std::span<float> llr);
   void clear_span();
   bool has_noise_model() const { return model_ready_; }
@@ -111,9 +120,12 @@ class SequenceDetector {
   std::array<std::vector<uint8_t>, 2> pattern_of_;  // pattern of branch (j, s)
 
   // Add-compare-select state (structure of arrays over states).
-  std::vector<double> pm_, pm_next_;
-  std::vector<double> hist_, hist_next_;  // [i * S + s]: survivor noise n_(k-1-i)
-  std::vector<double> branch_scratch_;
+  bool euclidean_ = false;             // kind == euclidean: the Euclidean kernel
+  std::vector<float> pmf_;             // path metrics
+  std::vector<float> histf_;           // [i * S + s]: survivor noise n_(k-1-i)
+  std::vector<float> metric_tables_;   // see install_tables()
+  size_t span_steps_ = 0;              // steps since the span began (renormalisation phase)
+  std::vector<float> out0f_, out1f_;   // branch outputs in float
 
   // Window of the last `count_` steps, a ring starting at `head_`.
   std::vector<uint32_t> decisions_;  // bit s: branch index into state s
@@ -124,6 +136,10 @@ class SequenceDetector {
 
   // Traceback scratch (sized to the window).
   std::vector<uint8_t> path_state_, path_branch_, path_bit_;
+  static constexpr size_t kPathPad = kMaxTraceback;  // room before step 0 (SOVA kernel)
+  std::vector<uint32_t> path_dec_;  // decisions of the window in step order
+  std::vector<float> path_delta_;   // metric difference at each survivor merge
+  std::vector<uint16_t> path_slot_; // ring slot of each step
   std::vector<float> path_rel_;
 
   // Decided-path history for estimates (kept across blocks of a span).

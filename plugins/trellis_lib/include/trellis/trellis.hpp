@@ -39,7 +39,7 @@ class Trellis {
   const std::vector<double>& taps() const { return taps_; }
 
   // Branch j into state s: predecessor state, noiseless output, NRZI bit, and the index
-  // of the output in distinct_outputs() (branch metrics are computed once per value).
+  // of the output in distinct_outputs() (for metrics computed once per distinct value).
   uint8_t pred(int j, int s) const { return pred_[j][s]; }
   double output(int j, int s) const { return out_[j][s]; }
   uint8_t nrzi(int j, int s) const { return nrzi_[j][s]; }
