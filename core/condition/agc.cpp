@@ -50,8 +50,8 @@ Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, 
     if (update) {
       acc_ += alpha_ * (x * x - acc_);
       weight_ += alpha_ * (1.0 - weight_);
-      const double ms = acc_ / weight_;
-      gain_ = ms > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms / std::sqrt(ms)) : cfg_.max_gain;
+      // reference / sqrt(acc / weight) in one division and one square root
+      gain_ = acc_ > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms * std::sqrt(weight_ / acc_)) : cfg_.max_gain;
     }
     out[i] = static_cast<float>(x * gain_);
   }

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstring>
 #include <sstream>
 
 #include "common/error.hpp"
@@ -26,8 +27,11 @@ ThermalAsperityFilter::ThermalAsperityFilter(const ThermalAsperityConfig& c) : c
   width_ = 2 * half_ + 1;
   alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
   smooth_alpha_ = 1.0 - std::exp(-1.0 / static_cast<double>(width_));
-  ring_x_.assign(width_, 0.0f);
-  ring_f_.assign(width_, 0);
+  size_t cap = 1;
+  while (cap < width_) cap *= 2;
+  mask_ = cap - 1;
+  ring_x_.assign(cap, 0.0f);
+  ring_f_.assign(cap, 0);
   sorted_.reserve(width_);
   reset();
 }
@@ -49,16 +53,45 @@ std::string ThermalAsperityFilter::describe() const {
 }
 
 void ThermalAsperityFilter::push(float x, uint8_t f) {
-  ring_x_[next_in_ % width_] = x;
-  ring_f_[next_in_ % width_] = f;
+  ring_x_[next_in_ & mask_] = x;
+  ring_f_[next_in_ & mask_] = f;
   sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
   ++next_in_;
 }
 
 void ThermalAsperityFilter::pop_oldest() {
-  const float x = ring_x_[window_start_ % width_];
+  const float x = ring_x_[window_start_ & mask_];
   sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
   ++window_start_;
+}
+
+void ThermalAsperityFilter::push_replacing_oldest(float x, uint8_t f) {
+  // pop_oldest() then push() in one pass: only the elements between the old value's
+  // place and the new value's place move.
+  const float old = ring_x_[window_start_ & mask_];
+  ++window_start_;
+  ring_x_[next_in_ & mask_] = x;
+  ring_f_[next_in_ & mask_] = f;
+  ++next_in_;
+  float* v = sorted_.data();
+  const size_t n = sorted_.size();
+  // Ranks by counting rather than by binary search: branch-free and vectorised for the
+  // window lengths in use (tens of samples), where a search mispredicts every sample.
+  size_t below_old = 0, not_above_new = 0;
+  for (size_t k = 0; k < n; ++k) {
+    below_old += v[k] < old ? 1 : 0;
+    not_above_new += v[k] <= x ? 1 : 0;
+  }
+  const size_t i = below_old;  // the old value's place (its first copy)
+  if (x >= old) {
+    const size_t j = not_above_new - 1;  // x's place once the old value is gone
+    std::memmove(v + i, v + i + 1, (j - i) * sizeof(float));
+    v[j] = x;
+  } else {
+    const size_t j = not_above_new;  // <= i
+    std::memmove(v + j + 1, v + j, (i - j) * sizeof(float));
+    v[j] = x;
+  }
 }
 
 double ThermalAsperityFilter::median() const {
@@ -68,18 +101,19 @@ double ThermalAsperityFilter::median() const {
 
 void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
   const uint64_t i = next_center_++;
-  const float x = ring_x_[i % width_];
-  uint8_t f = ring_f_[i % width_];
+  const float x = ring_x_[i & mask_];
+  uint8_t f = ring_f_[i & mask_];
   const double b = median();
-  const double level = weight_ > 0.0 ? std::sqrt(acc_ / weight_) : 0.0;
-  const bool warm = level_updates_ >= width_ && level > 0.0;
+  // Compared as squares, |b| > r * sqrt(acc / weight)  <=>  b^2 weight > r^2 acc: no square
+  // root or division per sample.
+  const bool warm = level_updates_ >= width_ && weight_ > 0.0 && acc_ > 0.0;
   if (warm) {
-    if (!in_span_ && std::abs(b) > cfg_.detect_ratio * level) {
+    if (!in_span_ && b * b * weight_ > cfg_.detect_ratio * cfg_.detect_ratio * acc_) {
       in_span_ = true;
       smooth_ = b;
     } else if (in_span_) {
       smooth_ += smooth_alpha_ * (b - smooth_);
-      if (std::abs(smooth_) < cfg_.release_ratio * level) in_span_ = false;
+      if (smooth_ * smooth_ * weight_ < cfg_.release_ratio * cfg_.release_ratio * acc_) in_span_ = false;
     }
   }
   double y = x;
@@ -103,8 +137,11 @@ Progress ThermalAsperityFilter::process(std::span<const float> in, std::span<con
   size_t produced = 0;
   for (size_t k = 0; k < n; ++k) {
     // Window of the next centre c: [c - half, c + half]; drop what falls out first.
-    if (next_in_ - window_start_ == width_) pop_oldest();
-    push(in[k], in_flags[k]);
+    if (next_in_ - window_start_ == width_) {
+      push_replacing_oldest(in[k], in_flags[k]);
+    } else {
+      push(in[k], in_flags[k]);
+    }
     if (next_in_ >= half_ + 1 + next_center_) {
       // next_in_ - 1 == next_center_ + half_: the centre's window is complete.
       while (window_start_ + half_ < next_center_) pop_oldest();

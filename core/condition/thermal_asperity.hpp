@@ -51,12 +51,14 @@ class ThermalAsperityFilter {
  private:
   void push(float x, uint8_t f);
   void pop_oldest();
+  void push_replacing_oldest(float x, uint8_t f);
   void emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced);
   double median() const;
 
   ThermalAsperityConfig cfg_;
   size_t half_, width_;
   double alpha_;
+  size_t mask_ = 0;  // ring capacity (a power of two >= width_) minus one
   std::vector<float> ring_x_;
   std::vector<uint8_t> ring_f_;
   std::vector<float> sorted_;

@@ -183,6 +183,10 @@ class TrackFramer {
     coarse_eq_ = std::make_unique<equalize::Equalizer>(ec);
     detect::DetectorSetup cs;
     cs.target = coarse_target_;
+    // The coarse path uses only the hard decisions (sync search, training levels): skip
+    // the reliabilities where the plugin can (the decisions are the same either way).
+    for (const auto& p : host.find(s.coarse_detector)->params)
+      if (p.key == "reliability") cs.params.push_back({"reliability", "0"});
     coarse_det_ = std::make_unique<detect::Detector>(host.create(s.coarse_detector, cs));
 
     int tol = s.sync_tolerance >= 0 ? s.sync_tolerance : fmt.sync_tolerance;

@@ -101,15 +101,20 @@ TimingLoop::TimingLoop(const TimingLoopConfig& cfg) : cfg_(cfg) {
 }
 
 void TimingLoop::reset() {
-  const size_t cap = size_t(std::ceil(4 * cfg_.samples_per_bit)) + 16;
+  size_t cap = 1;
+  while (cap < size_t(std::ceil(4 * cfg_.samples_per_bit)) + 16) cap *= 2;
   hist_.assign(cap, 0.0);
+  hist_mask_ = int64_t(cap) - 1;
   newest_ = -1;
   next_time_ = 1.0 + cfg_.samples_per_bit / 2;
   prev_time_ = next_time_ - cfg_.samples_per_bit;
   rate_int_ = 1.0 - 1.0 / (1.0 + cfg_.initial_rate_offset);
   recent_.assign(size_t(2 * cfg_.detect_window), 0.0);
   recent_count_ = 0;
-  fir_line_.assign(fir_.size(), 0.0);
+  detect_old_half_ = detect_new_half_ = 0;
+  detect_energy_ = 0;
+  bits_since_recompute_ = 0;
+  fir_line_.assign(2 * fir_.size(), 0.0);
   fir_pos_ = 0;
   taps_ = fir_;
   recent_q_.assign(kShortWindow, 0.0);
@@ -146,18 +151,24 @@ double TimingLoop::sample_at(int64_t index) const {
   const int64_t cap = int64_t(hist_.size());
   if (index < 0) return 0.0;  // before the capture: zeros
   if (index > newest_ || index <= newest_ - cap) throw_internal("timing loop: history underrun");
-  return hist_[size_t(index % cap)];
+  return hist_[size_t(index & hist_mask_)];
 }
 
 double TimingLoop::interpolate(double t) const {
-  const double m = std::floor(t);
+  // Instants are >= 0 after the first bit; truncation is floor there (and cheaper).
+  const double m = t >= 0 ? double(int64_t(t)) : std::floor(t);
   const int64_t mi = int64_t(m);
+  if (mi >= 1 && mi + 2 <= newest_ && mi - 1 > newest_ - int64_t(hist_.size())) {  // the usual case
+    const double* h = hist_.data();
+    return farrow_cubic({h[(mi - 1) & hist_mask_], h[mi & hist_mask_], h[(mi + 1) & hist_mask_],
+                         h[(mi + 2) & hist_mask_]},
+                        t - m);
+  }
   return farrow_cubic({sample_at(mi - 1), sample_at(mi), sample_at(mi + 1), sample_at(mi + 2)}, t - m);
 }
 
 Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out) {
   Progress p;
-  const int64_t cap = int64_t(hist_.size());
   for (;;) {
     // Produce every bit whose four interpolation samples are present.
     while (p.produced < out.size() && int64_t(std::floor(next_time_)) + 2 <= newest_) {
@@ -170,30 +181,82 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
       throw_input("timing loop", "non-finite sample at input index " + std::to_string(newest_ + 1));
     }
     ++newest_;
-    hist_[size_t(newest_ % cap)] = x;
+    hist_[size_t(newest_ & hist_mask_)] = x;
     ++p.consumed;
   }
   return p;
 }
 
+namespace {
+// e^{-i pi k / 2} for k mod 4.
+std::complex<double> quarter_turn(uint64_t k) {
+  constexpr double r[4][2] = {{1, 0}, {0, -1}, {-1, 0}, {0, 1}};
+  return {r[k & 3][0], r[k & 3][1]};
+}
+}  // namespace
+
+void TimingLoop::exact_detection_sums(std::complex<double>& old_half, std::complex<double>& new_half,
+                                      double& energy) const {
+  const uint64_t n = recent_.size();
+  const uint64_t w = uint64_t(cfg_.detect_window);
+  old_half = new_half = 0;
+  energy = 0;
+  // Absolute indices k = recent_count_ - w .. recent_count_ - 1 (zeros before the first bit).
+  for (uint64_t j = 0; j < w; ++j) {
+    if (recent_count_ + j < w) continue;
+    const uint64_t k = recent_count_ - w + j;
+    const double y = recent_[k % n];
+    energy += y * y;
+    (j < w / 2 ? old_half : new_half) += y * quarter_turn(k);
+  }
+}
+
+void TimingLoop::recompute_detection_sums() {
+  exact_detection_sums(detect_old_half_, detect_new_half_, detect_energy_);
+  bits_since_recompute_ = 0;
+}
+
+void TimingLoop::slide_detection_window(double y) {
+  const uint64_t n = recent_.size();  // 2 * detect_window
+  const uint64_t w = uint64_t(cfg_.detect_window);
+  const uint64_t k = recent_count_;
+  recent_[k % n] = y;
+  ++recent_count_;
+  // Exact sums now and then, so that rounding cannot accumulate over a long capture.
+  if (++bits_since_recompute_ >= 4096) {
+    recompute_detection_sums();
+    return;
+  }
+  detect_new_half_ += y * quarter_turn(k);
+  detect_energy_ += y * y;
+  if (k >= w / 2) {  // the sample that moves from the newer half to the older one
+    const uint64_t m = k - w / 2;
+    const std::complex<double> v = recent_[m % n] * quarter_turn(m);
+    detect_new_half_ -= v;
+    detect_old_half_ += v;
+  }
+  if (k >= w) {  // the sample that leaves the window
+    const uint64_t m = k - w;
+    const double old = recent_[m % n];
+    detect_old_half_ -= old * quarter_turn(m);
+    detect_energy_ -= old * old;
+  }
+}
+
 bool TimingLoop::detect_preamble(double& ratio) const {
   // Energy fraction of the newest detect_window bit samples in the DFT bin at 1/(4T),
-  // computed on two halves so that a frequency offset does not smear the line.
-  const size_t n = recent_.size();
-  const size_t w = size_t(cfg_.detect_window);
-  std::complex<double> x1 = 0, x2 = 0;
-  double energy = 0;
-  const std::complex<double> rot[4] = {{1, 0}, {0, -1}, {-1, 0}, {0, 1}};  // e^{-i pi j / 2}
-  for (size_t j = 0; j < w; ++j) {
-    const double y = recent_[(recent_count_ + n - w + j) % n];  // oldest first
-    energy += y * y;
-    (j < w / 2 ? x1 : x2) += y * rot[j % 4];
-  }
+  // computed on two halves so that a frequency offset does not smear the line. The sums
+  // are kept running by slide_detection_window().
+  const double w = double(cfg_.detect_window);
+  std::complex<double> x1 = detect_old_half_, x2 = detect_new_half_;
+  double energy = detect_energy_;
+  // Near silence the running sums are mostly rounding: use the exact ones.
+  if (energy < 1e-6 * w) exact_detection_sums(x1, x2, energy);
   if (energy <= 0) {
     ratio = 0;
     return false;
   }
-  ratio = 2.0 * (std::norm(x1) + std::norm(x2)) / (energy * double(w) / 2.0);
+  ratio = 2.0 * (std::norm(x1) + std::norm(x2)) / (energy * w / 2.0);
   return ratio > cfg_.detect_threshold;
 }
 
@@ -275,14 +338,15 @@ void TimingLoop::produce_one(BitSample& out) {
   const double y = interpolate(t);
   const double ymid = interpolate(0.5 * (t + prev_time_));
 
-  recent_[recent_count_ % recent_.size()] = y;
-  ++recent_count_;
+  slide_detection_window(y);
 
   // prefilter (runs in every mode so that its delay line is full when tracking starts)
-  fir_line_[fir_pos_] = y;
-  double q = 0;
   const size_t nt = taps_.size();
-  auto line = [&](size_t i) { return fir_line_[(fir_pos_ + nt - i) % nt]; };  // y_{k-i}
+  fir_line_[fir_pos_] = y;
+  fir_line_[fir_pos_ + nt] = y;
+  const double* newest = fir_line_.data() + fir_pos_ + nt;  // newest[-i] = y_{k-i}
+  auto line = [&](size_t i) { return newest[-ptrdiff_t(i)]; };
+  double q = 0;
   for (size_t i = 0; i < nt; ++i) {
     q += taps_[i] * line(i);
   }
@@ -344,7 +408,9 @@ void TimingLoop::produce_one(BitSample& out) {
     case TimingState::track: {
       const double g = data_gain_;
       const double u = q / g;
-      const double ud = std::clamp(std::round(2 * u) / 2, -1.0, 1.0);  // EPR4 levels 0, +-1/2, +-1
+      // EPR4 levels 0, +-1/2, +-1 (nearest; clamped first so the integer cast is safe)
+      const double r = std::clamp(2 * u, -2.0, 2.0);
+      const double ud = double(int(r + (r >= 0 ? 0.5 : -0.5))) / 2;  // round half away, as std::round
       const double d = g * ud;
       const double z = q * prev_dq_ - prev_q_ * d;
       e = std::clamp(z / (g * g * data_slope_), -0.5, 0.5);
@@ -408,7 +474,7 @@ void TimingLoop::produce_one(BitSample& out) {
     }
   }
 
-  fir_pos_ = (fir_pos_ + 1) % fir_line_.size();
+  fir_pos_ = fir_pos_ + 1 == nt ? 0 : fir_pos_ + 1;
 
   // loop filter and NCO: step = spb (1 - integrator - K1 e)
   double step = spb * (1.0 - rate_int_);

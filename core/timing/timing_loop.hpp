@@ -45,6 +45,7 @@
 // leaves the grid in place and is not seen here: analysis::SyncSearch compares sync-mark
 // spacing with the track layout for those.
 
+#include <complex>
 #include <cstdint>
 #include <deque>
 #include <span>
@@ -145,6 +146,9 @@ class TimingLoop {
   void enter_search();
   void enter_track(double t);
   bool detect_preamble(double& ratio) const;
+  void slide_detection_window(double y);  // adds y to recent_ and updates the running sums
+  void recompute_detection_sums();
+  void exact_detection_sums(std::complex<double>& old_half, std::complex<double>& new_half, double& energy) const;
   bool zero_phase_start(double min_shift_bits);  // false: residual below min, nothing done
   void push_trace(const TimingTracePoint& p);
   void push_event(const LockEvent& e);
@@ -154,8 +158,9 @@ class TimingLoop {
   std::vector<double> fir_;
   double data_slope_ = 0;
 
-  // input history: a ring indexed by absolute input index
+  // input history: a ring indexed by absolute input index (power-of-two size: index & mask)
   std::vector<double> hist_;
+  int64_t hist_mask_ = 0;
   int64_t newest_ = -1;  // absolute index of the newest input sample
 
   // clock
@@ -173,10 +178,16 @@ class TimingLoop {
   // last bit values for detection / ZPS (ring of detect_window)
   std::vector<double> recent_;
   uint64_t recent_count_ = 0;
+  // Running sums over the newest detect_window entries of recent_, so that preamble
+  // detection costs O(1) per bit: DFT bin 1/(4T) of the older and the newer half (phase
+  // referenced to the absolute bit count, which leaves the norms unchanged) and energy.
+  std::complex<double> detect_old_half_ = 0, detect_new_half_ = 0;
+  double detect_energy_ = 0;
+  int bits_since_recompute_ = 0;
 
   // prefilter delay line (ring of prefilter_taps) and its output history
   std::vector<double> taps_;      // prefilter taps in use (adapted in track mode)
-  std::vector<double> fir_line_;
+  std::vector<double> fir_line_;  // doubled delay line: y_{k-i} = fir_line_[fir_pos_ + nt - i]
   size_t fir_pos_ = 0;
   std::vector<double> recent_q_;  // last 16 prefilter outputs
 
