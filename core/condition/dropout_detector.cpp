@@ -22,6 +22,7 @@ DropoutDetector::DropoutDetector(const DropoutDetectorConfig& c) : cfg_(c) {
   half_ = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * c.samples_per_bit)));
   width_ = 2 * half_ + 1;
   alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
+  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
   size_t cap = 1;
   while (cap < width_) cap *= 2;
   mask_ = cap - 1;
@@ -44,12 +45,12 @@ std::string DropoutDetector::describe() const {
   return s.str();
 }
 
-void DropoutDetector::pop_oldest() {
+[[gnu::always_inline]] inline void DropoutDetector::pop_oldest() {
   sum_abs_ -= std::abs(ring_x_[window_start_ & mask_]);
   ++window_start_;
 }
 
-void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
+[[gnu::always_inline]] inline void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
   while (window_start_ + half_ < next_center_) pop_oldest();
   if (++since_recompute_ >= width_) {  // exact sum now and then: no rounding drift
     since_recompute_ = 0;
@@ -65,8 +66,8 @@ void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_f
   if (level_updates_ >= width_ && weight_ > 0.0 && sum_abs_ * weight_ < cfg_.threshold * acc_ * count)
     f |= flag_dropout;
   if (f == 0) {
-    acc_ += alpha_ * (std::abs(x) - acc_);
-    weight_ += alpha_ * (1.0 - weight_);
+    acc_ = retain_ * acc_ + alpha_ * std::abs(x);
+    weight_ = retain_ * weight_ + alpha_;
     ++level_updates_;
   }
   out[produced] = x;

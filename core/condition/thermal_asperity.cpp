@@ -26,21 +26,27 @@ ThermalAsperityFilter::ThermalAsperityFilter(const ThermalAsperityConfig& c) : c
   half_ = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * c.samples_per_bit)));
   width_ = 2 * half_ + 1;
   alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
+  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
   smooth_alpha_ = 1.0 - std::exp(-1.0 / static_cast<double>(width_));
   size_t cap = 1;
   while (cap < width_) cap *= 2;
   mask_ = cap - 1;
-  ring_x_.assign(cap, 0.0f);
+  ring_x_.assign(2 * cap, 0.0f);
   ring_f_.assign(cap, 0);
   sorted_.reserve(width_);
+  scratch_.reserve(width_);
   reset();
 }
 
 void ThermalAsperityFilter::reset() {
   sorted_.clear();
   next_in_ = next_center_ = window_start_ = 0;
+  window_sum_ = 0.0;
+  since_exact_sum_ = 0;
   acc_ = weight_ = 0.0;
   level_updates_ = 0;
+  detect_threshold_ = 0.0f;
+  threshold_age_ = 0;
   in_span_ = false;
   smooth_ = 0.0;
 }
@@ -52,68 +58,79 @@ std::string ThermalAsperityFilter::describe() const {
   return s.str();
 }
 
-void ThermalAsperityFilter::push(float x, uint8_t f) {
-  ring_x_[next_in_ & mask_] = x;
-  ring_f_[next_in_ & mask_] = f;
-  sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
+[[gnu::always_inline]] inline void ThermalAsperityFilter::push(float x, uint8_t f) {
+  const size_t slot = next_in_ & mask_;
+  ring_x_[slot] = x;
+  ring_x_[slot + mask_ + 1] = x;
+  ring_f_[slot] = f;
   ++next_in_;
+  window_sum_ += x;
+  if (in_span_) sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
 }
 
-void ThermalAsperityFilter::pop_oldest() {
+[[gnu::always_inline]] inline void ThermalAsperityFilter::pop_oldest() {
   const float x = ring_x_[window_start_ & mask_];
-  sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
   ++window_start_;
+  window_sum_ -= x;
+  if (in_span_) sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
 }
 
-void ThermalAsperityFilter::push_replacing_oldest(float x, uint8_t f) {
-  // pop_oldest() then push() in one pass: only the elements between the old value's
-  // place and the new value's place move.
-  const float old = ring_x_[window_start_ & mask_];
-  ++window_start_;
-  ring_x_[next_in_ & mask_] = x;
-  ring_f_[next_in_ & mask_] = f;
-  ++next_in_;
-  float* v = sorted_.data();
-  const size_t n = sorted_.size();
-  // Ranks by counting rather than by binary search: branch-free and vectorised for the
-  // window lengths in use (tens of samples), where a search mispredicts every sample.
-  size_t below_old = 0, not_above_new = 0;
+double ThermalAsperityFilter::exact_median() const {
+  const size_t n = window_size();
+  if (n == 0) return 0.0;
+  if (in_span_ && sorted_.size() == n) {
+    return (n % 2) ? sorted_[n / 2] : 0.5 * (static_cast<double>(sorted_[n / 2 - 1]) + sorted_[n / 2]);
+  }
+  scratch_.assign(window(), window() + n);
+  std::sort(scratch_.begin(), scratch_.end());
+  return (n % 2) ? scratch_[n / 2] : 0.5 * (static_cast<double>(scratch_[n / 2 - 1]) + scratch_[n / 2]);
+}
+
+void ThermalAsperityFilter::sort_window() {
+  sorted_.assign(window(), window() + window_size());
+  std::sort(sorted_.begin(), sorted_.end());
+}
+
+bool ThermalAsperityFilter::median_beyond(float t) const {
+  // For an odd count n, median > t exactly when more than n/2 samples are > t.
+  const float* w = window();
+  const size_t n = window_size();
+  uint32_t above = 0, below = 0;  // 32-bit counters: four to a vector register
   for (size_t k = 0; k < n; ++k) {
-    below_old += v[k] < old ? 1 : 0;
-    not_above_new += v[k] <= x ? 1 : 0;
+    above += w[k] > t ? 1u : 0u;
+    below += w[k] < -t ? 1u : 0u;
   }
-  const size_t i = below_old;  // the old value's place (its first copy)
-  if (x >= old) {
-    const size_t j = not_above_new - 1;  // x's place once the old value is gone
-    std::memmove(v + i, v + i + 1, (j - i) * sizeof(float));
-    v[j] = x;
-  } else {
-    const size_t j = not_above_new;  // <= i
-    std::memmove(v + j + 1, v + j, (i - j) * sizeof(float));
-    v[j] = x;
-  }
+  return above > n / 2 || below > n / 2;
 }
 
-double ThermalAsperityFilter::median() const {
-  const size_t n = sorted_.size();
-  return (n % 2) ? sorted_[n / 2] : 0.5 * (static_cast<double>(sorted_[n / 2 - 1]) + sorted_[n / 2]);
-}
-
-void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
+[[gnu::always_inline]] inline void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
   const uint64_t i = next_center_++;
   const float x = ring_x_[i & mask_];
   uint8_t f = ring_f_[i & mask_];
-  const double b = median();
-  // Compared as squares, |b| > r * sqrt(acc / weight)  <=>  b^2 weight > r^2 acc: no square
-  // root or division per sample.
+  const size_t n = window_size();
   const bool warm = level_updates_ >= width_ && weight_ > 0.0 && acc_ > 0.0;
+  double b = 0.0;  // the median, where it is needed
   if (warm) {
-    if (!in_span_ && b * b * weight_ > cfg_.detect_ratio * cfg_.detect_ratio * acc_) {
-      in_span_ = true;
-      smooth_ = b;
-    } else if (in_span_) {
+    if (!in_span_) {
+      if (threshold_age_++ % 16 == 0 || detect_threshold_ <= 0.0f)
+        detect_threshold_ = static_cast<float>(cfg_.detect_ratio * std::sqrt(acc_ / weight_));
+      // The count test needs a full window of odd length; the last half window of a
+      // capture (flush) takes the exact median instead.
+      const bool beyond = (n == width_) ? median_beyond(detect_threshold_)
+                                        : std::abs(exact_median()) > cfg_.detect_ratio * std::sqrt(acc_ / weight_);
+      if (beyond) {
+        in_span_ = true;
+        sort_window();
+        b = exact_median();
+        smooth_ = b;
+      }
+    } else {
+      b = exact_median();
       smooth_ += smooth_alpha_ * (b - smooth_);
-      if (smooth_ * smooth_ * weight_ < cfg_.release_ratio * cfg_.release_ratio * acc_) in_span_ = false;
+      if (smooth_ * smooth_ * weight_ < cfg_.release_ratio * cfg_.release_ratio * acc_) {
+        in_span_ = false;
+        sorted_.clear();
+      }
     }
   }
   double y = x;
@@ -121,9 +138,9 @@ void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t>
     f |= flag_thermal_asperity;
     if (cfg_.suppress) y = x - b;
   } else if (f == 0) {
-    const double r = x - b;
-    acc_ += alpha_ * (r * r - acc_);
-    weight_ += alpha_ * (1.0 - weight_);
+    const double r = x - window_sum_ / static_cast<double>(n);
+    acc_ = retain_ * acc_ + alpha_ * (r * r);
+    weight_ = retain_ * weight_ + alpha_;
     ++level_updates_;
   }
   out[produced] = static_cast<float>(y);
@@ -137,10 +154,12 @@ Progress ThermalAsperityFilter::process(std::span<const float> in, std::span<con
   size_t produced = 0;
   for (size_t k = 0; k < n; ++k) {
     // Window of the next centre c: [c - half, c + half]; drop what falls out first.
-    if (next_in_ - window_start_ == width_) {
-      push_replacing_oldest(in[k], in_flags[k]);
-    } else {
-      push(in[k], in_flags[k]);
+    if (next_in_ - window_start_ == width_) pop_oldest();
+    push(in[k], in_flags[k]);
+    if (++since_exact_sum_ >= 4096) {  // exact window sum now and then: no rounding drift
+      since_exact_sum_ = 0;
+      window_sum_ = 0.0;
+      for (size_t j = 0; j < window_size(); ++j) window_sum_ += window()[j];
     }
     if (next_in_ >= half_ + 1 + next_center_) {
       // next_in_ - 1 == next_center_ + half_: the centre's window is complete.
