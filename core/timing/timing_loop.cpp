@@ -100,6 +100,13 @@ TimingLoop::TimingLoop(const TimingLoopConfig& cfg) : cfg_(cfg) {
   reset();
 }
 
+void TimingLoop::set_track_scales() {
+  inv_gain_ = 1.0 / data_gain_;
+  inv_error_scale_ = 1.0 / (data_gain_ * data_gain_ * data_slope_);
+  inv_lock_average_ = 1.0 / cfg_.lock_average_bits;
+  inv_spb_ = 1.0 / cfg_.samples_per_bit;
+}
+
 void TimingLoop::reset() {
   size_t cap = 1;
   while (cap < size_t(std::ceil(4 * cfg_.samples_per_bit)) + 16) cap *= 2;
@@ -120,6 +127,7 @@ void TimingLoop::reset() {
   recent_q_.assign(kShortWindow, 0.0);
   prev_y_ = prev_dy_ = prev_q_ = prev_dq_ = 0;
   tone_amp_ = data_gain_ = 1;
+  set_track_scales();
   sig_pow_ = err_pow_ = 0;
   pending_shift_ = 0;
   ref_time_ = ref_rate_ = 0;
@@ -209,6 +217,23 @@ void TimingLoop::exact_detection_sums(std::complex<double>& old_half, std::compl
     energy += y * y;
     (j < w / 2 ? old_half : new_half) += y * quarter_turn(k);
   }
+}
+
+// sum_i a[i] * b[-i] (or a[-i] * b[-i] when both_reversed), in four partial sums so that
+// the additions do not wait on one another.
+static inline double reversed_dot(const double* a, const double* b, size_t n, bool both_reversed = false) {
+  double s0 = 0, s1 = 0, s2 = 0, s3 = 0;
+  const ptrdiff_t sa = both_reversed ? -1 : 1;
+  size_t i = 0;
+  for (; i + 4 <= n; i += 4) {
+    const ptrdiff_t k = ptrdiff_t(i);
+    s0 += a[sa * k] * b[-k];
+    s1 += a[sa * (k + 1)] * b[-(k + 1)];
+    s2 += a[sa * (k + 2)] * b[-(k + 2)];
+    s3 += a[sa * (k + 3)] * b[-(k + 3)];
+  }
+  for (; i < n; ++i) s0 += a[sa * ptrdiff_t(i)] * b[-ptrdiff_t(i)];
+  return (s0 + s1) + (s2 + s3);
 }
 
 void TimingLoop::recompute_detection_sums() {
@@ -319,6 +344,7 @@ void TimingLoop::enter_track(double t) {
   double e = 0;
   for (double q : recent_q_) e += q * q;
   data_gain_ = std::max(std::sqrt(2.0 * e / double(recent_q_.size())), 1e-12);
+  set_track_scales();
   sig_pow_ = 0.5;
   err_pow_ = 0;
   prev_q_ = prev_dq_ = 0;
@@ -346,10 +372,9 @@ void TimingLoop::produce_one(BitSample& out) {
   fir_line_[fir_pos_ + nt] = y;
   const double* newest = fir_line_.data() + fir_pos_ + nt;  // newest[-i] = y_{k-i}
   auto line = [&](size_t i) { return newest[-ptrdiff_t(i)]; };
-  double q = 0;
-  for (size_t i = 0; i < nt; ++i) {
-    q += taps_[i] * line(i);
-  }
+  // The older samples' part first: it does not wait for this bit's interpolation, which
+  // is on the loop's bit-to-bit critical path.
+  const double q = reversed_dot(taps_.data() + 1, newest - 1, nt - 1) + taps_[0] * y;
   recent_q_[stats_.bits % recent_q_.size()] = q;
 
   double e = 0;  // timing error, bits, positive = late
@@ -406,14 +431,16 @@ void TimingLoop::produce_one(BitSample& out) {
       break;
     }
     case TimingState::track: {
+      // Divisions by constants of the lock are products by reciprocals kept since
+      // enter_track(): a division costs several multiplies on this bit-by-bit path.
       const double g = data_gain_;
-      const double u = q / g;
+      const double u = q * inv_gain_;
       // EPR4 levels 0, +-1/2, +-1 (nearest; clamped first so the integer cast is safe)
       const double r = std::clamp(2 * u, -2.0, 2.0);
       const double ud = double(int(r + (r >= 0 ? 0.5 : -0.5))) / 2;  // round half away, as std::round
       const double d = g * ud;
       const double z = q * prev_dq_ - prev_q_ * d;
-      e = std::clamp(z / (g * g * data_slope_), -0.5, 0.5);
+      e = std::clamp(z * inv_error_scale_, -0.5, 0.5);
       prev_q_ = q;
       prev_dq_ = d;
       // Decision-directed NLMS on the prefilter towards the EPR4 levels, keeping the taps
@@ -422,8 +449,7 @@ void TimingLoop::produce_one(BitSample& out) {
       // the amplitude. Adapts the in-loop filter to the real PW50 (Widrow & Hoff 1960;
       // normalised step as in Haykin, Adaptive Filter Theory).
       if (cfg_.prefilter_step > 0) {
-        double power = 0;
-        for (size_t i = 0; i < nt; ++i) power += line(i) * line(i);
+        const double power = reversed_dot(newest, newest, nt, true);
         const double mu = cfg_.prefilter_step * g / std::max(power, 1e-12);
         const double err = q - d;
         for (size_t i = 0; i < nt / 2; ++i) {
@@ -433,18 +459,18 @@ void TimingLoop::produce_one(BitSample& out) {
         }
         taps_[nt / 2] -= mu * err * line(nt / 2);
       }
-      const double a = 1.0 / cfg_.lock_average_bits;
+      const double a = inv_lock_average_;
       sig_pow_ += a * (u * u - sig_pow_);
       err_pow_ += a * ((u - ud) * (u - ud) - err_pow_);
       gains = &track_gains_;
       ++stats_.locked_bits;
       // cycle-slip reference clock: follows the sampling instants with a slower PI loop
-      const double dev = (t - ref_time_) / spb;  // bits, positive: loop later than reference
+      const double dev = (t - ref_time_) * inv_spb_;  // bits, positive: loop later than reference
       if (std::fabs(dev) > 0.5) {
         ++stats_.cycle_slips;
         ref_time_ += std::copysign(spb * (1.0 - ref_rate_), dev);
       }
-      const double er = (ref_time_ - t) / spb;
+      const double er = (ref_time_ - t) * inv_spb_;
       ref_rate_ += reference_gains_.integral * er;
       ref_time_ += spb * (1.0 - ref_rate_ - reference_gains_.proportional * er);
       if (sig_pow_ < cfg_.min_signal_power || err_pow_ > cfg_.max_error_power) {

@@ -145,6 +145,7 @@ class TimingLoop {
   double sample_at(int64_t index) const;
   void enter_search();
   void enter_track(double t);
+  void set_track_scales();  // reciprocals used per bit while tracking
   bool detect_preamble(double& ratio) const;
   void slide_detection_window(double y);  // adds y to recent_ and updates the running sums
   void recompute_detection_sums();
@@ -196,6 +197,7 @@ class TimingLoop {
   double prev_q_ = 0, prev_dq_ = 0;  // data detector
   double tone_amp_ = 1;              // P: tone amplitude from ZPS
   double data_gain_ = 1;             // G: EPR4 level of a single transition
+  double inv_gain_ = 1, inv_error_scale_ = 1, inv_lock_average_ = 1, inv_spb_ = 1;  // set_track_scales()
   double sig_pow_ = 0, err_pow_ = 0; // lock detector averages
 
 
