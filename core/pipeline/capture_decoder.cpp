@@ -169,7 +169,10 @@ class TrackFramer {
     data_bits_ = static_cast<size_t>(fmt.coded_bytes) * 9;
     margin_ = 48;
     window_len_ = margin_ + known_len_ + header_bits_ + data_bits_ + static_cast<size_t>(fmt.postamble_bits) + margin_;
-    ring_.resize(window_len_ * 2 + 8192);
+    size_t ring_size = 1;  // a power of two, so that a bit's slot is index & mask
+    while (ring_size < window_len_ * 2 + 8192) ring_size *= 2;
+    ring_.resize(ring_size);
+    ring_mask_ = ring_size - 1;
 
     // Coarse path: fixed Wiener equalizer towards EPR4 and the coarse detector.
     coarse_target_ = equalize::lookup_target("EPR4").taps;
@@ -249,8 +252,8 @@ class TrackFramer {
   std::string fine_target_name() const { return fine_spec_.name; }
 
  private:
-  const RingEntry& at(uint64_t i) const { return ring_[i % ring_.size()]; }
-  RingEntry& at(uint64_t i) { return ring_[i % ring_.size()]; }
+  const RingEntry& at(uint64_t i) const { return ring_[i & ring_mask_]; }
+  RingEntry& at(uint64_t i) { return ring_[i & ring_mask_]; }
 
   void make_fine(const std::vector<double>& target, std::vector<double> taps) {
     equalize::EqualizerConfig ec;
@@ -712,6 +715,7 @@ class TrackFramer {
   size_t known_len_ = 0, header_bits_ = 0, data_bits_ = 0, margin_ = 0, window_len_ = 0;
 
   std::vector<RingEntry> ring_;
+  uint64_t ring_mask_ = 0;
   uint64_t count_ = 0;             // bit samples received
   uint64_t coarse_y_count_ = 0;    // coarse equalizer outputs stored
   uint64_t coarse_bit_count_ = 0;  // coarse decisions stored
@@ -807,7 +811,8 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   std::vector<timing::BitSample> bits(resampled.size());
   std::vector<uint8_t> bflags(bits.size());
   // Resampled flags by absolute resampled index, for the bit samples the PLL makes.
-  std::vector<uint8_t> flag_ring(1 << 16, 0);
+  constexpr size_t flag_ring_size = 1 << 16;  // a power of two: index & (size - 1)
+  std::vector<uint8_t> flag_ring(flag_ring_size, 0);
   uint64_t resampled_count = 0;
 
   auto run_pll = [&](std::span<const float> in) {
@@ -817,12 +822,14 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
       off += p.consumed;
       if (probe) pll.drain_trace(probe->pll_trace);
       for (size_t i = 0; i < p.produced; ++i) {
-        auto idx = static_cast<int64_t>(std::llround(bits[i].position));
+        // nearest resampled index (positions are >= 0; truncation of x + 0.5 is llround there)
+        const double pos = bits[i].position;
+        auto idx = pos >= 0 ? static_cast<int64_t>(pos + 0.5) : static_cast<int64_t>(std::llround(pos));
         uint8_t f = 0;
         for (int64_t j = idx - 1; j <= idx + 1; ++j)
           if (j >= 0 && static_cast<uint64_t>(j) < resampled_count &&
               resampled_count - static_cast<uint64_t>(j) < flag_ring.size())
-            f |= flag_ring[static_cast<size_t>(j) % flag_ring.size()];
+            f |= flag_ring[static_cast<size_t>(j) & (flag_ring_size - 1)];
         bflags[i] = f;
         bits[i].position = rs.input_position(0) + bits[i].position * rs.ratio();  // capture samples
       }
@@ -842,7 +849,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
         p = rs.process(in.subspan(off), fl.subspan(off), resampled, rflags);
         off += p.consumed;
       }
-      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) % flag_ring.size()] = rflags[i];
+      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) & (flag_ring_size - 1)] = rflags[i];
       resampled_count += p.produced;
       run_pll(std::span<const float>(resampled.data(), p.produced));
       if (flushing && p.produced == 0) break;
