@@ -244,6 +244,9 @@ class TrackFramer {
   }
 
   std::vector<SectorAttempt> take_results() { return std::move(results_); }
+  // Where finished attempts go: to the sink as they are made when one is set (memory
+  // then does not grow with the capture), else kept for take_results().
+  void set_sink(const SectorSink* sink) { sink_ = sink; }
   uint64_t bits() const { return count_; }
   uint64_t sync_marks() const { return sync_marks_; }
   uint64_t truncated() const { return truncated_; }
@@ -390,12 +393,8 @@ class TrackFramer {
       // data rare for a 64-sample template.
       if (best < 0.8) return;
       ++sync_marks_;
-      decode_window(best_p - known_len_ - margin_, best_p - known_len_ - margin_ + window_len_, best_p, -1);
-      if (!results_.empty() && results_.back().capture_position == at(best_p - 1).position)
-        results_.back().notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
-      for (auto& d : deferred_)
-        if (d.attempt.capture_position == at(best_p - 1).position)
-          d.attempt.notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
+      decode_window(best_p - known_len_ - margin_, best_p - known_len_ - margin_ + window_len_, best_p, -1,
+                    "sync mark found by correlation on the samples (bit search missed it)");
       from = best_p;
     }
   }
@@ -413,7 +412,10 @@ class TrackFramer {
     make_fine(fine_target_, d.equalizer);
   }
 
-  void decode_window(uint64_t w0, uint64_t w1, uint64_t sync_end, int sync_distance) {
+  // late_note: a note that belongs at the end of the attempt's evidence (how its sync mark
+  // was found), added just before the attempt leaves (or is deferred).
+  void decode_window(uint64_t w0, uint64_t w1, uint64_t sync_end, int sync_distance,
+                     const char* late_note = nullptr) {
     const size_t L = static_cast<size_t>(w1 - w0);
     const size_t k0 = margin_;                 // preamble start within the window
     const size_t ks = sync_end - w0;           // first header bit within the window
@@ -585,9 +587,11 @@ class TrackFramer {
     if (a.header_ok) {
       anchors_.push_back({a.capture_position, a.sector});
       decode_sector_data(fmt_, decode_options(), sb, a);
-      results_.push_back(std::move(a));
+      if (late_note) a.notes.push_back(late_note);
+      emit(std::move(a));
     } else {
       a.notes.push_back("header unreadable");
+      if (late_note) a.notes.push_back(late_note);
       deferred_.push_back(Deferred{std::move(a), std::move(sb), std::move(eye_y), std::move(eye_d)});
     }
   }
@@ -688,7 +692,7 @@ class TrackFramer {
       }
       if (probe_ && probe_->eye_lba && *probe_->eye_lba == best.lba && !d.eye_samples.empty())
         keep_eye(std::move(d.eye_samples), std::move(d.eye_ideal));
-      results_.push_back(std::move(best));
+      emit(std::move(best));
     }
     deferred_.clear();
   }
@@ -741,12 +745,21 @@ class TrackFramer {
   std::vector<Anchor> anchors_;
   std::vector<Deferred> deferred_;
   std::vector<SectorAttempt> results_;
+  const SectorSink* sink_ = nullptr;
+
+  void emit(SectorAttempt&& a) {
+    if (sink_ && *sink_) {
+      (*sink_)(std::move(a));
+    } else {
+      results_.push_back(std::move(a));
+    }
+  }
 };
 
 }  // namespace
 
 CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::LoadOptions& load_options,
-                                     CaptureProbe* probe) {
+                                     CaptureProbe* probe, const SectorSink& sink) {
   load::LoadOptions lo = load_options;
   load::CaptureReader reader = load::open_capture(capture.path, lo);
   const load::CaptureInfo& info = reader.info();
@@ -797,6 +810,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
 
   TrackFramer framer(fmt_, host_, settings_, cap, capture.path.filename().string());
   framer.probe_ = probe;
+  framer.set_sink(&sink);
   if (probe) {
     probe->sample_rate_hz = info.sample_rate_hz;
     probe->bit_rate_hz = sum.bit_rate_hz;
