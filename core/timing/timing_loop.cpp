@@ -123,7 +123,13 @@ void TimingLoop::reset() {
   bits_since_recompute_ = 0;
   fir_line_.assign(2 * fir_.size(), 0.0);
   fir_pos_ = 0;
+  // The design is symmetric up to rounding; make it exactly so, as the folded prefilter
+  // below (and the tracking update, which keeps it symmetric) assume.
   taps_ = fir_;
+  for (size_t i = 0; i < taps_.size() / 2; ++i)
+    taps_[i] = taps_[taps_.size() - 1 - i] = 0.5 * (taps_[i] + taps_[taps_.size() - 1 - i]);
+  line_power_ = 0;
+  bits_since_power_ = 0;
   recent_q_.assign(kShortWindow, 0.0);
   prev_y_ = prev_dy_ = prev_q_ = prev_dq_ = 0;
   tone_amp_ = data_gain_ = 1;
@@ -368,13 +374,28 @@ void TimingLoop::produce_one(BitSample& out) {
 
   // prefilter (runs in every mode so that its delay line is full when tracking starts)
   const size_t nt = taps_.size();
+  const double leaving = fir_line_[fir_pos_];  // y_{k-nt}, overwritten now
   fir_line_[fir_pos_] = y;
   fir_line_[fir_pos_ + nt] = y;
   const double* newest = fir_line_.data() + fir_pos_ + nt;  // newest[-i] = y_{k-i}
   auto line = [&](size_t i) { return newest[-ptrdiff_t(i)]; };
-  // The older samples' part first: it does not wait for this bit's interpolation, which
-  // is on the loop's bit-to-bit critical path.
-  const double q = reversed_dot(taps_.data() + 1, newest - 1, nt - 1) + taps_[0] * y;
+  // Symmetric taps: fold the line, f_i = y_{k-i} + y_{k-(nt-1-i)} (the tracking update's
+  // gradient too), and take the part that does not wait for this bit's interpolation
+  // first, since y_k is on the loop's bit-to-bit critical path.
+  const size_t half = nt / 2;
+  double fold[32];
+  for (size_t i = 1; i < half; ++i) fold[i] = line(i) + line(nt - 1 - i);
+  fold[half] = line(half);
+  double older = taps_[0] * line(nt - 1);
+  for (size_t i = 1; i <= half; ++i) older += taps_[i] * fold[i];
+  const double q = older + taps_[0] * y;
+  fold[0] = y + line(nt - 1);
+  // Line power for the tracking update, kept running (exact again every 1024 bits).
+  line_power_ += y * y - leaving * leaving;
+  if (++bits_since_power_ >= 1024) {
+    line_power_ = reversed_dot(newest, newest, nt, true);
+    bits_since_power_ = 0;
+  }
   recent_q_[stats_.bits % recent_q_.size()] = q;
 
   double e = 0;  // timing error, bits, positive = late
@@ -449,15 +470,13 @@ void TimingLoop::produce_one(BitSample& out) {
       // the amplitude. Adapts the in-loop filter to the real PW50 (Widrow & Hoff 1960;
       // normalised step as in Haykin, Adaptive Filter Theory).
       if (cfg_.prefilter_step > 0) {
-        const double power = reversed_dot(newest, newest, nt, true);
-        const double mu = cfg_.prefilter_step * g / std::max(power, 1e-12);
+        const double mu = cfg_.prefilter_step * g / std::max(line_power_, 1e-12);
         const double err = q - d;
-        for (size_t i = 0; i < nt / 2; ++i) {
-          const double grad = line(i) + line(nt - 1 - i);
-          taps_[i] -= mu * err * grad / 2;
+        for (size_t i = 0; i < half; ++i) {
+          taps_[i] -= mu * err * fold[i] / 2;
           taps_[nt - 1 - i] = taps_[i];
         }
-        taps_[nt / 2] -= mu * err * line(nt / 2);
+        taps_[half] -= mu * err * fold[half];
       }
       const double a = inv_lock_average_;
       sig_pow_ += a * (u * u - sig_pow_);

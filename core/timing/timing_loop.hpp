@@ -191,6 +191,8 @@ class TimingLoop {
   std::vector<double> fir_line_;  // doubled delay line: y_{k-i} = fir_line_[fir_pos_ + nt - i]
   size_t fir_pos_ = 0;
   std::vector<double> recent_q_;  // last 16 prefilter outputs
+  double line_power_ = 0;         // sum of squares over the prefilter line (running)
+  int bits_since_power_ = 0;
 
   // detectors
   double prev_y_ = 0, prev_dy_ = 0;  // tone detector: previous sample and decision
