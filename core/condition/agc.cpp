@@ -20,6 +20,7 @@ Agc::Agc(const AgcConfig& c) : cfg_(c) {
   if (!(c.initial_gain > 0.0) || !std::isfinite(c.initial_gain))
     throw_usage("condition.agc.initial_gain", "must be > 0, got " + std::to_string(c.initial_gain));
   alpha_ = 1.0 - std::exp(-1.0 / (c.time_constant_bits * c.samples_per_bit));
+  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
   reset();
 }
 
@@ -48,10 +49,10 @@ Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, 
       update = update && in_flags[i] == 0;
     }
     if (update) {
-      acc_ += alpha_ * (x * x - acc_);
-      weight_ += alpha_ * (1.0 - weight_);
-      const double ms = acc_ / weight_;
-      gain_ = ms > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms / std::sqrt(ms)) : cfg_.max_gain;
+      acc_ = retain_ * acc_ + alpha_ * (x * x);
+      weight_ = retain_ * weight_ + alpha_;
+      // reference / sqrt(acc / weight) in one division and one square root
+      gain_ = acc_ > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms * std::sqrt(weight_ / acc_)) : cfg_.max_gain;
     }
     out[i] = static_cast<float>(x * gain_);
   }

@@ -50,6 +50,7 @@ class Agc {
                std::span<uint8_t> out_flags);
   AgcConfig cfg_;
   double alpha_;
+  double retain_ = 1.0;  // 1 - alpha_
   double acc_ = 0.0, weight_ = 0.0, gain_ = 1.0;
   bool frozen_ = false;
 };

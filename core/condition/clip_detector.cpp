@@ -21,13 +21,13 @@ ClipDetector::ClipDetector(const ClipDetectorConfig& c) : cfg_(c) {
   clip_level_ = static_cast<float>((1.0 - c.margin) * c.full_scale);
   run_level_ = static_cast<float>(c.run_level * c.full_scale);
   delay_ = c.min_run > 0 ? static_cast<size_t>(c.min_run - 1) : 0;
-  ring_x_.assign(delay_ + 1, 0.0f);
-  ring_f_.assign(delay_ + 1, 0);
+  work_x_.assign(delay_ + kBlock, 0.0f);
+  work_f_.assign(delay_ + kBlock, 0);
   reset();
 }
 
 void ClipDetector::reset() {
-  head_ = count_ = 0;
+  held_ = 0;
   run_value_ = 0.0f;
   run_len_ = 0;
 }
@@ -38,51 +38,60 @@ std::string ClipDetector::describe() const {
   return s.str();
 }
 
-void ClipDetector::emit(size_t& produced, std::span<float> out, std::span<uint8_t> out_flags) {
-  out[produced] = ring_x_[head_];
-  out_flags[produced] = ring_f_[head_];
-  ++produced;
-  head_ = (head_ + 1) % ring_x_.size();
-  --count_;
-}
-
 Progress ClipDetector::process(std::span<const float> in, std::span<const uint8_t> in_flags,
                                std::span<float> out, std::span<uint8_t> out_flags) {
   const size_t n = std::min(in.size(), out.size());
-  const size_t cap = ring_x_.size();
   size_t produced = 0;
-  for (size_t i = 0; i < n; ++i) {
-    const float x = in[i];
-    uint8_t f = in_flags[i];
-    if (std::abs(x) >= clip_level_) f |= flag_clipped;
+  for (size_t off = 0; off < n; off += kBlock) {
+    const size_t m = std::min(kBlock, n - off);
+    float* wx = work_x_.data();
+    uint8_t* wf = work_f_.data();
+    // Level test on the whole block first (vectorised), then the run test, which is
+    // sequential but almost always a single comparison.
+    for (size_t i = 0; i < m; ++i) {
+      const float x = in[off + i];
+      wx[held_ + i] = x;
+      wf[held_ + i] = static_cast<uint8_t>(in_flags[off + i] | (std::abs(x) >= clip_level_ ? flag_clipped : 0));
+    }
     if (cfg_.min_run > 0) {
-      if (x == run_value_ && std::abs(x) >= run_level_) {
-        ++run_len_;
-      } else {
-        run_value_ = x;
-        run_len_ = 1;
-      }
-      if (run_len_ >= cfg_.min_run) {
-        f |= flag_clipped;
-        if (run_len_ == cfg_.min_run) {
-          // The earlier members of the run are the `delay_` samples still held back.
-          for (size_t k = 0; k < count_; ++k) ring_f_[(head_ + k) % cap] |= flag_clipped;
+      for (size_t i = 0; i < m; ++i) {
+        const float x = wx[held_ + i];
+        if (x == run_value_ && std::abs(x) >= run_level_) {
+          ++run_len_;
+        } else {
+          run_value_ = x;
+          run_len_ = 1;
+        }
+        if (run_len_ >= cfg_.min_run) {
+          wf[held_ + i] |= flag_clipped;
+          // The run's earlier members are the delay_ samples before this one, all still
+          // in the work area (held back from the previous block or earlier in this one).
+          if (run_len_ == cfg_.min_run)
+            for (size_t k = held_ + i - delay_; k < held_ + i; ++k) wf[k] |= flag_clipped;
         }
       }
     }
-    const size_t tail = (head_ + count_) % cap;
-    ring_x_[tail] = x;
-    ring_f_[tail] = f;
-    ++count_;
-    if (count_ > delay_) emit(produced, out, out_flags);
+    // Everything but the last delay_ samples is decided: emit it, keep the rest.
+    const size_t total = held_ + m;
+    const size_t emit = total > delay_ ? total - delay_ : 0;
+    std::copy(wx, wx + emit, out.begin() + static_cast<long>(produced));
+    std::copy(wf, wf + emit, out_flags.begin() + static_cast<long>(produced));
+    produced += emit;
+    std::copy(wx + emit, wx + total, wx);
+    std::copy(wf + emit, wf + total, wf);
+    held_ = total - emit;
   }
   return {n, produced};
 }
 
 Progress ClipDetector::flush(std::span<float> out, std::span<uint8_t> out_flags) {
-  size_t produced = 0;
-  while (count_ > 0 && produced < out.size()) emit(produced, out, out_flags);
-  return {0, produced};
+  const size_t k = std::min({held_, out.size(), out_flags.size()});
+  std::copy(work_x_.begin(), work_x_.begin() + static_cast<long>(k), out.begin());
+  std::copy(work_f_.begin(), work_f_.begin() + static_cast<long>(k), out_flags.begin());
+  std::copy(work_x_.begin() + static_cast<long>(k), work_x_.begin() + static_cast<long>(held_), work_x_.begin());
+  std::copy(work_f_.begin() + static_cast<long>(k), work_f_.begin() + static_cast<long>(held_), work_f_.begin());
+  held_ -= k;
+  return {0, k};
 }
 
 }  // namespace salvor

@@ -38,13 +38,15 @@ class ClipDetector {
   size_t lookahead() const { return delay_; }
 
  private:
-  void emit(size_t& produced, std::span<float> out, std::span<uint8_t> out_flags);
+  static constexpr size_t kBlock = 4096;
   ClipDetectorConfig cfg_;
   float clip_level_, run_level_;
   size_t delay_;
-  std::vector<float> ring_x_;
-  std::vector<uint8_t> ring_f_;
-  size_t head_ = 0, count_ = 0;  // oldest entry, entries held
+  // The last delay_ samples, held back until a run they may belong to is decided, and the
+  // work area of one block: held samples followed by the block's input.
+  std::vector<float> work_x_;
+  std::vector<uint8_t> work_f_;
+  size_t held_ = 0;  // samples held at the front of work_x_
   float run_value_ = 0.0f;
   int run_len_ = 0;
 };

@@ -22,8 +22,12 @@ DropoutDetector::DropoutDetector(const DropoutDetectorConfig& c) : cfg_(c) {
   half_ = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * c.samples_per_bit)));
   width_ = 2 * half_ + 1;
   alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
-  ring_x_.assign(width_, 0.0f);
-  ring_f_.assign(width_, 0);
+  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
+  size_t cap = 1;
+  while (cap < width_) cap *= 2;
+  mask_ = cap - 1;
+  ring_x_.assign(cap, 0.0f);
+  ring_f_.assign(cap, 0);
   reset();
 }
 
@@ -41,27 +45,29 @@ std::string DropoutDetector::describe() const {
   return s.str();
 }
 
-void DropoutDetector::pop_oldest() {
-  sum_abs_ -= std::abs(ring_x_[window_start_ % width_]);
+[[gnu::always_inline]] inline void DropoutDetector::pop_oldest() {
+  sum_abs_ -= std::abs(ring_x_[window_start_ & mask_]);
   ++window_start_;
 }
 
-void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
+[[gnu::always_inline]] inline void DropoutDetector::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
   while (window_start_ + half_ < next_center_) pop_oldest();
   if (++since_recompute_ >= width_) {  // exact sum now and then: no rounding drift
     since_recompute_ = 0;
     sum_abs_ = 0.0;
-    for (uint64_t k = window_start_; k < next_in_; ++k) sum_abs_ += std::abs(ring_x_[k % width_]);
+    for (uint64_t k = window_start_; k < next_in_; ++k) sum_abs_ += std::abs(ring_x_[k & mask_]);
   }
   const uint64_t i = next_center_++;
-  const float x = ring_x_[i % width_];
-  uint8_t f = ring_f_[i % width_];
-  const double envelope = sum_abs_ / static_cast<double>(next_in_ - window_start_);
-  const double level = weight_ > 0.0 ? acc_ / weight_ : 0.0;
-  if (level_updates_ >= width_ && envelope < cfg_.threshold * level) f |= flag_dropout;
+  const float x = ring_x_[i & mask_];
+  uint8_t f = ring_f_[i & mask_];
+  // envelope < threshold x level, with envelope = sum / count and level = acc / weight,
+  // compared without the two divisions.
+  const double count = static_cast<double>(next_in_ - window_start_);
+  if (level_updates_ >= width_ && weight_ > 0.0 && sum_abs_ * weight_ < cfg_.threshold * acc_ * count)
+    f |= flag_dropout;
   if (f == 0) {
-    acc_ += alpha_ * (std::abs(x) - acc_);
-    weight_ += alpha_ * (1.0 - weight_);
+    acc_ = retain_ * acc_ + alpha_ * std::abs(x);
+    weight_ = retain_ * weight_ + alpha_;
     ++level_updates_;
   }
   out[produced] = x;
@@ -75,8 +81,8 @@ Progress DropoutDetector::process(std::span<const float> in, std::span<const uin
   size_t produced = 0;
   for (size_t k = 0; k < n; ++k) {
     if (next_in_ - window_start_ == width_) pop_oldest();
-    ring_x_[next_in_ % width_] = in[k];
-    ring_f_[next_in_ % width_] = in_flags[k];
+    ring_x_[next_in_ & mask_] = in[k];
+    ring_f_[next_in_ & mask_] = in_flags[k];
     sum_abs_ += std::abs(in[k]);
     ++next_in_;
     if (next_in_ >= next_center_ + half_ + 1) emit_center(out, out_flags, produced);

@@ -45,6 +45,8 @@ class DropoutDetector {
   DropoutDetectorConfig cfg_;
   size_t half_, width_;
   double alpha_;
+  double retain_ = 1.0;  // 1 - alpha_
+  size_t mask_ = 0;  // ring capacity (a power of two >= width_) minus one
   std::vector<float> ring_x_;
   std::vector<uint8_t> ring_f_;
   double sum_abs_ = 0.0;

@@ -12,8 +12,13 @@ std::string flag_kind_name(FlagKind kind) {
 }
 
 void SpanCollector::add(uint64_t first_index, std::span<const uint8_t> flags) {
+  uint8_t open_mask = 0;  // the kinds now open, as flag bits
+  for (int k = 0; k < kinds; ++k) open_mask = static_cast<uint8_t>(open_mask | (open_[k] ? 1u << k : 0u));
+  constexpr uint8_t kind_mask = (1u << kinds) - 1;
   for (size_t i = 0; i < flags.size(); ++i) {
     const uint8_t f = flags[i];
+    if ((f & kind_mask) == open_mask) continue;  // nothing opens or closes (almost every sample)
+    open_mask = f & kind_mask;
     for (int k = 0; k < kinds; ++k) {
       const bool on = (f >> k) & 1u;
       if (on && !open_[k]) {

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstring>
 #include <sstream>
 
 #include "common/error.hpp"
@@ -25,18 +26,27 @@ ThermalAsperityFilter::ThermalAsperityFilter(const ThermalAsperityConfig& c) : c
   half_ = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * c.samples_per_bit)));
   width_ = 2 * half_ + 1;
   alpha_ = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * c.samples_per_bit));
+  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
   smooth_alpha_ = 1.0 - std::exp(-1.0 / static_cast<double>(width_));
-  ring_x_.assign(width_, 0.0f);
-  ring_f_.assign(width_, 0);
+  size_t cap = 1;
+  while (cap < width_) cap *= 2;
+  mask_ = cap - 1;
+  ring_x_.assign(2 * cap, 0.0f);
+  ring_f_.assign(cap, 0);
   sorted_.reserve(width_);
+  scratch_.reserve(width_);
   reset();
 }
 
 void ThermalAsperityFilter::reset() {
   sorted_.clear();
   next_in_ = next_center_ = window_start_ = 0;
+  window_sum_ = 0.0;
+  since_exact_sum_ = 0;
   acc_ = weight_ = 0.0;
   level_updates_ = 0;
+  detect_threshold_ = 0.0f;
+  threshold_age_ = 0;
   in_span_ = false;
   smooth_ = 0.0;
 }
@@ -48,38 +58,79 @@ std::string ThermalAsperityFilter::describe() const {
   return s.str();
 }
 
-void ThermalAsperityFilter::push(float x, uint8_t f) {
-  ring_x_[next_in_ % width_] = x;
-  ring_f_[next_in_ % width_] = f;
-  sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
+[[gnu::always_inline]] inline void ThermalAsperityFilter::push(float x, uint8_t f) {
+  const size_t slot = next_in_ & mask_;
+  ring_x_[slot] = x;
+  ring_x_[slot + mask_ + 1] = x;
+  ring_f_[slot] = f;
   ++next_in_;
+  window_sum_ += x;
+  if (in_span_) sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
 }
 
-void ThermalAsperityFilter::pop_oldest() {
-  const float x = ring_x_[window_start_ % width_];
-  sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
+[[gnu::always_inline]] inline void ThermalAsperityFilter::pop_oldest() {
+  const float x = ring_x_[window_start_ & mask_];
   ++window_start_;
+  window_sum_ -= x;
+  if (in_span_) sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
 }
 
-double ThermalAsperityFilter::median() const {
-  const size_t n = sorted_.size();
-  return (n % 2) ? sorted_[n / 2] : 0.5 * (static_cast<double>(sorted_[n / 2 - 1]) + sorted_[n / 2]);
+double ThermalAsperityFilter::exact_median() const {
+  const size_t n = window_size();
+  if (n == 0) return 0.0;
+  if (in_span_ && sorted_.size() == n) {
+    return (n % 2) ? sorted_[n / 2] : 0.5 * (static_cast<double>(sorted_[n / 2 - 1]) + sorted_[n / 2]);
+  }
+  scratch_.assign(window(), window() + n);
+  std::sort(scratch_.begin(), scratch_.end());
+  return (n % 2) ? scratch_[n / 2] : 0.5 * (static_cast<double>(scratch_[n / 2 - 1]) + scratch_[n / 2]);
 }
 
-void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
+void ThermalAsperityFilter::sort_window() {
+  sorted_.assign(window(), window() + window_size());
+  std::sort(sorted_.begin(), sorted_.end());
+}
+
+bool ThermalAsperityFilter::median_beyond(float t) const {
+  // For an odd count n, median > t exactly when more than n/2 samples are > t.
+  const float* w = window();
+  const size_t n = window_size();
+  uint32_t above = 0, below = 0;  // 32-bit counters: four to a vector register
+  for (size_t k = 0; k < n; ++k) {
+    above += w[k] > t ? 1u : 0u;
+    below += w[k] < -t ? 1u : 0u;
+  }
+  return above > n / 2 || below > n / 2;
+}
+
+[[gnu::always_inline]] inline void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
   const uint64_t i = next_center_++;
-  const float x = ring_x_[i % width_];
-  uint8_t f = ring_f_[i % width_];
-  const double b = median();
-  const double level = weight_ > 0.0 ? std::sqrt(acc_ / weight_) : 0.0;
-  const bool warm = level_updates_ >= width_ && level > 0.0;
+  const float x = ring_x_[i & mask_];
+  uint8_t f = ring_f_[i & mask_];
+  const size_t n = window_size();
+  const bool warm = level_updates_ >= width_ && weight_ > 0.0 && acc_ > 0.0;
+  double b = 0.0;  // the median, where it is needed
   if (warm) {
-    if (!in_span_ && std::abs(b) > cfg_.detect_ratio * level) {
-      in_span_ = true;
-      smooth_ = b;
-    } else if (in_span_) {
+    if (!in_span_) {
+      if (threshold_age_++ % 16 == 0 || detect_threshold_ <= 0.0f)
+        detect_threshold_ = static_cast<float>(cfg_.detect_ratio * std::sqrt(acc_ / weight_));
+      // The count test needs a full window of odd length; the last half window of a
+      // capture (flush) takes the exact median instead.
+      const bool beyond = (n == width_) ? median_beyond(detect_threshold_)
+                                        : std::abs(exact_median()) > cfg_.detect_ratio * std::sqrt(acc_ / weight_);
+      if (beyond) {
+        in_span_ = true;
+        sort_window();
+        b = exact_median();
+        smooth_ = b;
+      }
+    } else {
+      b = exact_median();
       smooth_ += smooth_alpha_ * (b - smooth_);
-      if (std::abs(smooth_) < cfg_.release_ratio * level) in_span_ = false;
+      if (smooth_ * smooth_ * weight_ < cfg_.release_ratio * cfg_.release_ratio * acc_) {
+        in_span_ = false;
+        sorted_.clear();
+      }
     }
   }
   double y = x;
@@ -87,9 +138,9 @@ void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t>
     f |= flag_thermal_asperity;
     if (cfg_.suppress) y = x - b;
   } else if (f == 0) {
-    const double r = x - b;
-    acc_ += alpha_ * (r * r - acc_);
-    weight_ += alpha_ * (1.0 - weight_);
+    const double r = x - window_sum_ / static_cast<double>(n);
+    acc_ = retain_ * acc_ + alpha_ * (r * r);
+    weight_ = retain_ * weight_ + alpha_;
     ++level_updates_;
   }
   out[produced] = static_cast<float>(y);
@@ -105,6 +156,11 @@ Progress ThermalAsperityFilter::process(std::span<const float> in, std::span<con
     // Window of the next centre c: [c - half, c + half]; drop what falls out first.
     if (next_in_ - window_start_ == width_) pop_oldest();
     push(in[k], in_flags[k]);
+    if (++since_exact_sum_ >= 4096) {  // exact window sum now and then: no rounding drift
+      since_exact_sum_ = 0;
+      window_sum_ = 0.0;
+      for (size_t j = 0; j < window_size(); ++j) window_sum_ += window()[j];
+    }
     if (next_in_ >= half_ + 1 + next_center_) {
       // next_in_ - 1 == next_center_ + half_: the centre's window is complete.
       while (window_start_ + half_ < next_center_) pop_oldest();

@@ -11,10 +11,16 @@
 // running medians [memory]). A span opens when |baseline| > detect_ratio x signal rms and
 // closes when the baseline, smoothed inside the span by a one-pole low-pass with the
 // window's length as time constant (the raw median scatters by ~0.2 rms on data and would
-// close the span early), falls below release_ratio x signal rms. The signal rms is tracked from the
-// residual (input - baseline) outside flagged samples, time constant level_time_constant_bits.
-// Suppression: inside the span the baseline is subtracted. The span is flagged
-// `thermal_asperity`. Thresholds: common practice, no source.
+// close the span early), falls below release_ratio x signal rms. The signal rms is tracked
+// from the residual (input - window mean) outside flagged samples, time constant
+// level_time_constant_bits. Suppression: inside the span the baseline is subtracted. The
+// span is flagged `thermal_asperity`. Thresholds: common practice, no source.
+//
+// Cost: outside a span only the test "median > T or < -T" is needed, and for a full window
+// of odd length n that is exactly "more than n/2 samples above T (below -T)": two counts,
+// vectorised, instead of a sorted window. The threshold T = detect_ratio x rms is refreshed
+// every 16 samples (the rms moves by about 1 % in that time at the default time constant).
+// The window is kept sorted only inside a span, where the median's value is used.
 //
 // Output sample i is input sample i; the centred window needs half a window of look-ahead,
 // held back by process() and emitted by flush().
@@ -52,19 +58,30 @@ class ThermalAsperityFilter {
   void push(float x, uint8_t f);
   void pop_oldest();
   void emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced);
-  double median() const;
+  const float* window() const { return ring_x_.data() + (window_start_ & mask_); }
+  size_t window_size() const { return static_cast<size_t>(next_in_ - window_start_); }
+  double exact_median() const;     // of the window as it is now (sorts a copy)
+  void sort_window();              // sorted_ := the window, sorted (at a span's start)
+  bool median_beyond(float threshold) const;  // |median| > threshold, full window only
 
   ThermalAsperityConfig cfg_;
   size_t half_, width_;
   double alpha_;
-  std::vector<float> ring_x_;
+  double retain_ = 1.0;  // 1 - alpha_
+  size_t mask_ = 0;             // ring capacity (a power of two >= width_) minus one
+  std::vector<float> ring_x_;   // doubled: sample i at (i & mask_) and (i & mask_) + capacity
   std::vector<uint8_t> ring_f_;
-  std::vector<float> sorted_;
+  std::vector<float> sorted_;   // the window sorted, kept only inside a span
+  mutable std::vector<float> scratch_;
   uint64_t next_in_ = 0;       // index of the next input sample
   uint64_t next_center_ = 0;   // index of the next output sample
   uint64_t window_start_ = 0;  // oldest index in the window
+  double window_sum_ = 0.0;    // sum of the window (for its mean)
+  uint64_t since_exact_sum_ = 0;
   double acc_ = 0.0, weight_ = 0.0;
   uint64_t level_updates_ = 0;
+  float detect_threshold_ = 0.0f;  // detect_ratio x rms, refreshed every 16 samples
+  uint64_t threshold_age_ = 0;
   bool in_span_ = false;
   double smooth_ = 0.0;  // low-passed baseline inside a span
   double smooth_alpha_ = 0.0;

@@ -169,7 +169,10 @@ class TrackFramer {
     data_bits_ = static_cast<size_t>(fmt.coded_bytes) * 9;
     margin_ = 48;
     window_len_ = margin_ + known_len_ + header_bits_ + data_bits_ + static_cast<size_t>(fmt.postamble_bits) + margin_;
-    ring_.resize(window_len_ * 2 + 8192);
+    size_t ring_size = 1;  // a power of two, so that a bit's slot is index & mask
+    while (ring_size < window_len_ * 2 + 8192) ring_size *= 2;
+    ring_.resize(ring_size);
+    ring_mask_ = ring_size - 1;
 
     // Coarse path: fixed Wiener equalizer towards EPR4 and the coarse detector.
     coarse_target_ = equalize::lookup_target("EPR4").taps;
@@ -183,6 +186,10 @@ class TrackFramer {
     coarse_eq_ = std::make_unique<equalize::Equalizer>(ec);
     detect::DetectorSetup cs;
     cs.target = coarse_target_;
+    // The coarse path uses only the hard decisions (sync search, training levels): skip
+    // the reliabilities where the plugin can (the decisions are the same either way).
+    for (const auto& p : host.find(s.coarse_detector)->params)
+      if (p.key == "reliability") cs.params.push_back({"reliability", "0"});
     coarse_det_ = std::make_unique<detect::Detector>(host.create(s.coarse_detector, cs));
 
     int tol = s.sync_tolerance >= 0 ? s.sync_tolerance : fmt.sync_tolerance;
@@ -237,6 +244,9 @@ class TrackFramer {
   }
 
   std::vector<SectorAttempt> take_results() { return std::move(results_); }
+  // Where finished attempts go: to the sink as they are made when one is set (memory
+  // then does not grow with the capture), else kept for take_results().
+  void set_sink(const SectorSink* sink) { sink_ = sink; }
   uint64_t bits() const { return count_; }
   uint64_t sync_marks() const { return sync_marks_; }
   uint64_t truncated() const { return truncated_; }
@@ -245,8 +255,8 @@ class TrackFramer {
   std::string fine_target_name() const { return fine_spec_.name; }
 
  private:
-  const RingEntry& at(uint64_t i) const { return ring_[i % ring_.size()]; }
-  RingEntry& at(uint64_t i) { return ring_[i % ring_.size()]; }
+  const RingEntry& at(uint64_t i) const { return ring_[i & ring_mask_]; }
+  RingEntry& at(uint64_t i) { return ring_[i & ring_mask_]; }
 
   void make_fine(const std::vector<double>& target, std::vector<double> taps) {
     equalize::EqualizerConfig ec;
@@ -383,12 +393,8 @@ class TrackFramer {
       // data rare for a 64-sample template.
       if (best < 0.8) return;
       ++sync_marks_;
-      decode_window(best_p - known_len_ - margin_, best_p - known_len_ - margin_ + window_len_, best_p, -1);
-      if (!results_.empty() && results_.back().capture_position == at(best_p - 1).position)
-        results_.back().notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
-      for (auto& d : deferred_)
-        if (d.attempt.capture_position == at(best_p - 1).position)
-          d.attempt.notes.push_back("sync mark found by correlation on the samples (bit search missed it)");
+      decode_window(best_p - known_len_ - margin_, best_p - known_len_ - margin_ + window_len_, best_p, -1,
+                    "sync mark found by correlation on the samples (bit search missed it)");
       from = best_p;
     }
   }
@@ -406,7 +412,10 @@ class TrackFramer {
     make_fine(fine_target_, d.equalizer);
   }
 
-  void decode_window(uint64_t w0, uint64_t w1, uint64_t sync_end, int sync_distance) {
+  // late_note: a note that belongs at the end of the attempt's evidence (how its sync mark
+  // was found), added just before the attempt leaves (or is deferred).
+  void decode_window(uint64_t w0, uint64_t w1, uint64_t sync_end, int sync_distance,
+                     const char* late_note = nullptr) {
     const size_t L = static_cast<size_t>(w1 - w0);
     const size_t k0 = margin_;                 // preamble start within the window
     const size_t ks = sync_end - w0;           // first header bit within the window
@@ -578,9 +587,11 @@ class TrackFramer {
     if (a.header_ok) {
       anchors_.push_back({a.capture_position, a.sector});
       decode_sector_data(fmt_, decode_options(), sb, a);
-      results_.push_back(std::move(a));
+      if (late_note) a.notes.push_back(late_note);
+      emit(std::move(a));
     } else {
       a.notes.push_back("header unreadable");
+      if (late_note) a.notes.push_back(late_note);
       deferred_.push_back(Deferred{std::move(a), std::move(sb), std::move(eye_y), std::move(eye_d)});
     }
   }
@@ -681,7 +692,7 @@ class TrackFramer {
       }
       if (probe_ && probe_->eye_lba && *probe_->eye_lba == best.lba && !d.eye_samples.empty())
         keep_eye(std::move(d.eye_samples), std::move(d.eye_ideal));
-      results_.push_back(std::move(best));
+      emit(std::move(best));
     }
     deferred_.clear();
   }
@@ -708,6 +719,7 @@ class TrackFramer {
   size_t known_len_ = 0, header_bits_ = 0, data_bits_ = 0, margin_ = 0, window_len_ = 0;
 
   std::vector<RingEntry> ring_;
+  uint64_t ring_mask_ = 0;
   uint64_t count_ = 0;             // bit samples received
   uint64_t coarse_y_count_ = 0;    // coarse equalizer outputs stored
   uint64_t coarse_bit_count_ = 0;  // coarse decisions stored
@@ -733,12 +745,21 @@ class TrackFramer {
   std::vector<Anchor> anchors_;
   std::vector<Deferred> deferred_;
   std::vector<SectorAttempt> results_;
+  const SectorSink* sink_ = nullptr;
+
+  void emit(SectorAttempt&& a) {
+    if (sink_ && *sink_) {
+      (*sink_)(std::move(a));
+    } else {
+      results_.push_back(std::move(a));
+    }
+  }
 };
 
 }  // namespace
 
 CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::LoadOptions& load_options,
-                                     CaptureProbe* probe) {
+                                     CaptureProbe* probe, const SectorSink& sink) {
   load::LoadOptions lo = load_options;
   load::CaptureReader reader = load::open_capture(capture.path, lo);
   const load::CaptureInfo& info = reader.info();
@@ -789,6 +810,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
 
   TrackFramer framer(fmt_, host_, settings_, cap, capture.path.filename().string());
   framer.probe_ = probe;
+  framer.set_sink(&sink);
   if (probe) {
     probe->sample_rate_hz = info.sample_rate_hz;
     probe->bit_rate_hz = sum.bit_rate_hz;
@@ -803,7 +825,8 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   std::vector<timing::BitSample> bits(resampled.size());
   std::vector<uint8_t> bflags(bits.size());
   // Resampled flags by absolute resampled index, for the bit samples the PLL makes.
-  std::vector<uint8_t> flag_ring(1 << 16, 0);
+  constexpr size_t flag_ring_size = 1 << 16;  // a power of two: index & (size - 1)
+  std::vector<uint8_t> flag_ring(flag_ring_size, 0);
   uint64_t resampled_count = 0;
 
   auto run_pll = [&](std::span<const float> in) {
@@ -813,12 +836,14 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
       off += p.consumed;
       if (probe) pll.drain_trace(probe->pll_trace);
       for (size_t i = 0; i < p.produced; ++i) {
-        auto idx = static_cast<int64_t>(std::llround(bits[i].position));
+        // nearest resampled index (positions are >= 0; truncation of x + 0.5 is llround there)
+        const double pos = bits[i].position;
+        auto idx = pos >= 0 ? static_cast<int64_t>(pos + 0.5) : static_cast<int64_t>(std::llround(pos));
         uint8_t f = 0;
         for (int64_t j = idx - 1; j <= idx + 1; ++j)
           if (j >= 0 && static_cast<uint64_t>(j) < resampled_count &&
               resampled_count - static_cast<uint64_t>(j) < flag_ring.size())
-            f |= flag_ring[static_cast<size_t>(j) % flag_ring.size()];
+            f |= flag_ring[static_cast<size_t>(j) & (flag_ring_size - 1)];
         bflags[i] = f;
         bits[i].position = rs.input_position(0) + bits[i].position * rs.ratio();  // capture samples
       }
@@ -838,7 +863,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
         p = rs.process(in.subspan(off), fl.subspan(off), resampled, rflags);
         off += p.consumed;
       }
-      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) % flag_ring.size()] = rflags[i];
+      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) & (flag_ring_size - 1)] = rflags[i];
       resampled_count += p.produced;
       run_pll(std::span<const float>(resampled.data(), p.produced));
       if (flushing && p.produced == 0) break;

@@ -19,6 +19,7 @@
 // bits between any two sectors); its data is then descrambled with the implied address.
 
 #include <cstdint>
+#include <functional>
 #include <optional>
 #include <string>
 #include <vector>
@@ -88,6 +89,8 @@ struct CaptureSummary {
   nlohmann::json to_json() const;
 };
 
+using SectorSink = std::function<void(results::SectorAttempt&&)>;
+
 struct CaptureResult {
   std::vector<results::SectorAttempt> sectors;
   CaptureSummary summary;
@@ -98,8 +101,10 @@ class CaptureDecoder {
   CaptureDecoder(const format::TrackFormat& fmt, const detect::PluginHost& host,
                  const DecodeSettings& settings);
   // Throws salvor::Error(input) for an unreadable capture or one of another format.
+  // With a sink, every sector attempt is handed to it as soon as it is final and
+  // CaptureResult::sectors stays empty; without one they are collected there.
   CaptureResult decode(const JobCapture& capture, const load::LoadOptions& load_options = {},
-                       CaptureProbe* probe = nullptr);
+                       CaptureProbe* probe = nullptr, const SectorSink& sink = {});
 
  private:
   const format::TrackFormat& fmt_;

@@ -1,6 +1,7 @@
 #include "pipeline/decode_job.hpp"
 
 #include <atomic>
+#include <condition_variable>
 #include <memory>
 #include <exception>
 #include <filesystem>
@@ -51,16 +52,94 @@ std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackF
   return summaries;
 }
 
+namespace {
+
+// Hands sector attempts to the folder in job order (capture by capture, each capture's
+// attempts in the order it made them), whatever the thread count, without holding a
+// whole capture's attempts: the earliest unfinished capture (the head) records straight
+// into the folder; captures behind it keep theirs until the head reaches them. A capture
+// behind the head that has buffered more than `limit` attempts waits for the head, so
+// memory stays bounded however long a capture is.
+class OrderedRecorder {
+ public:
+  OrderedRecorder(results::DecodeFolder& folder, size_t captures, size_t limit)
+      : folder_(folder), pending_(captures), finished_(captures, false), limit_(limit) {}
+
+  void add(size_t capture, results::SectorAttempt&& a) {
+    std::unique_lock<std::mutex> lock(mu_);
+    if (capture != head_ && pending_[capture].size() >= limit_)
+      moved_.wait(lock, [&] { return capture == head_ || aborted_; });
+    if (aborted_) throw_internal("decode stopped: another capture failed");
+    if (capture == head_) {
+      folder_.record(std::move(a));
+      ++recorded_;
+    } else {
+      pending_[capture].push_back(std::move(a));
+    }
+  }
+
+  void finish(size_t capture) {
+    std::lock_guard<std::mutex> lock(mu_);
+    finished_[capture] = true;
+    while (head_ < finished_.size() && finished_[head_]) {
+      ++head_;
+      if (head_ < pending_.size()) {
+        for (auto& a : pending_[head_]) {
+          folder_.record(std::move(a));
+          ++recorded_;
+        }
+        pending_[head_] = {};
+      }
+    }
+    moved_.notify_all();
+  }
+
+  // Another capture failed: wake every waiting worker so that the job can stop.
+  void abort() {
+    std::lock_guard<std::mutex> lock(mu_);
+    aborted_ = true;
+    moved_.notify_all();
+  }
+
+  size_t recorded() const { return recorded_; }
+
+ private:
+  results::DecodeFolder& folder_;
+  std::mutex mu_;
+  std::condition_variable moved_;
+  std::vector<std::vector<results::SectorAttempt>> pending_;
+  std::vector<bool> finished_;
+  size_t head_ = 0;
+  size_t limit_;
+  size_t recorded_ = 0;
+  bool aborted_ = false;
+};
+
+}  // namespace
+
 JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detect::PluginHost& host,
                      const DecodeSettings& settings, results::DecodeFolder& folder,
                      const JobRunOptions& options) {
-  std::vector<results::SectorAttempt> attempts;
+  const size_t n = job.captures.size();
+  // 4096 attempts are a few MiB: enough that a worker rarely waits for the head.
+  OrderedRecorder recorder(folder, n, 4096);
+  std::vector<CaptureSummary> summaries(n);
+  parallel_for(
+      n, options.threads,
+      [&](size_t i) {
+        const SectorSink sink = [&recorder, i](results::SectorAttempt&& a) { recorder.add(i, std::move(a)); };
+        try {
+          summaries[i] = CaptureDecoder(fmt, host, settings).decode(job.captures[i], {}, nullptr, sink).summary;
+        } catch (...) {
+          recorder.abort();
+          throw;
+        }
+        recorder.finish(i);
+      },
+      options.progress);
   JobRunResult out;
-  out.captures = run_job_collect(job, fmt, host, settings, options, attempts);
-  for (auto& a : attempts) {
-    folder.record(std::move(a));
-    ++out.attempts;
-  }
+  out.captures = std::move(summaries);
+  out.attempts = recorder.recorded();
   return out;
 }
 

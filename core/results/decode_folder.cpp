@@ -90,8 +90,8 @@ DecodeFolder DecodeFolder::open(const fs::path& dir) {
       throw_input((dir / "sectors.jsonl").string(),
                   "line " + std::to_string(lineno) + " is not valid JSON: " + e.what());
     }
-    f.old_log_.push_back(line);
   }
+  f.log_on_disk_ = true;
   // Statuses set by a merge (conflict) live in the map, not in any single attempt.
   for (const auto& s : map.at("sectors")) {
     uint64_t lba = s.at("lba").get<uint64_t>();
@@ -120,7 +120,7 @@ DecodeFolder DecodeFolder::open(const fs::path& dir) {
 bool DecodeFolder::record(SectorAttempt attempt) {
   if (attempt.lba >= final_.size())
     throw_internal("sector attempt for lba " + std::to_string(attempt.lba) + " outside the image");
-  new_log_.push_back(to_json(attempt).dump());
+  spool_line(to_json(attempt).dump());
   SectorAttempt& cur = final_[attempt.lba];
   if (cur.status == SectorStatus::conflict) return false;  // only a merge resolves a conflict
   if (!better_than(attempt, cur)) return false;
@@ -132,7 +132,28 @@ bool DecodeFolder::record(SectorAttempt attempt) {
   return true;
 }
 
-void DecodeFolder::append_log_line(const nlohmann::json& line) { new_log_.push_back(line.dump()); }
+void DecodeFolder::append_log_line(const nlohmann::json& line) { spool_line(line.dump()); }
+
+void DecodeFolder::spool_line(const std::string& line) {
+  if (!spool_) {
+    spool_.reset(std::tmpfile());
+    if (!spool_) throw_output("sectors.jsonl", "cannot create a temporary file for the log");
+  }
+  if (std::fwrite(line.data(), 1, line.size(), spool_.get()) != line.size() || std::fputc('\n', spool_.get()) == EOF)
+    throw_output("sectors.jsonl", "cannot write the log's temporary file (disk full?)");
+  ++new_lines_;
+}
+
+std::vector<std::string> DecodeFolder::logged_lines() const {
+  std::vector<std::string> lines;
+  if (!log_on_disk_) return lines;
+  std::ifstream in(dir_ / "sectors.jsonl");
+  if (!in) throw_input((dir_ / "sectors.jsonl").string(), "missing or unreadable");
+  std::string line;
+  while (std::getline(in, line))
+    if (!line.empty()) lines.push_back(line);
+  return lines;
+}
 
 void DecodeFolder::set_final(SectorAttempt attempt) {
   if (attempt.lba >= final_.size())
@@ -170,13 +191,24 @@ std::string DecodeFolder::write(const FillPolicy& fill) {
   // sectors.jsonl: the old lines, then this run's attempts.
   {
     AtomicFile log(dir_ / "sectors.jsonl");
-    for (const auto& l : old_log_) {
-      log.write(l);
-      log.write("\n");
+    std::vector<char> buf(1 << 16);
+    if (log_on_disk_) {  // the lines already there, copied as they are
+      std::ifstream old(dir_ / "sectors.jsonl", std::ios::binary);
+      if (!old) throw_input((dir_ / "sectors.jsonl").string(), "missing or unreadable");
+      bool ends_with_newline = true;
+      while (old.read(buf.data(), static_cast<std::streamsize>(buf.size())) || old.gcount() > 0) {
+        const auto n = static_cast<size_t>(old.gcount());
+        log.write(std::string_view(buf.data(), n));
+        ends_with_newline = buf[n - 1] == '\n';
+      }
+      if (!ends_with_newline) log.write("\n");
     }
-    for (const auto& l : new_log_) {
-      log.write(l);
-      log.write("\n");
+    if (spool_) {
+      std::FILE* f = spool_.get();
+      if (std::fflush(f) != 0 || std::fseek(f, 0, SEEK_SET) != 0)
+        throw_output("sectors.jsonl", "cannot read back the log's temporary file");
+      while (size_t n = std::fread(buf.data(), 1, buf.size(), f)) log.write(std::string_view(buf.data(), n));
+      if (std::ferror(f)) throw_output("sectors.jsonl", "cannot read back the log's temporary file");
     }
     log.commit();
   }
@@ -197,8 +229,9 @@ std::string DecodeFolder::write(const FillPolicy& fill) {
   write_file_atomic(dir_ / "run.json", run_.dump(2) + "\n");
 
   // The log lines are now on disk: a second write() must not append them again.
-  for (auto& l : new_log_) old_log_.push_back(std::move(l));
-  new_log_.clear();
+  spool_.reset();
+  new_lines_ = 0;
+  log_on_disk_ = true;
   return image_sha;
 }
 

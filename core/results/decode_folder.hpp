@@ -11,7 +11,9 @@
 // sector is never replaced by an unverified one.
 
 #include <cstdint>
+#include <cstdio>
 #include <filesystem>
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -48,12 +50,12 @@ class DecodeFolder {
   const Geometry& geometry() const { return geometry_; }
   const std::vector<SectorAttempt>& final_attempts() const { return final_; }
   const SectorAttempt& final_attempt(uint64_t lba) const { return final_.at(lba); }
-  size_t new_attempts() const { return new_log_.size(); }
+  size_t new_attempts() const { return new_lines_; }
   nlohmann::json& run_info() { return run_; }  // the command fills it (versions, parameters, inputs)
   const std::filesystem::path& dir() const { return dir_; }
 
-  // For a merge of folders: the log lines read by open(), in file order.
-  const std::vector<std::string>& logged_lines() const { return old_log_; }
+  // For a merge of folders: the log lines already on disk (read by open()), in file order.
+  std::vector<std::string> logged_lines() const;
   // For a merge: appends one log line as given (an attempt from another folder, tagged
   // with where it came from) without changing any final result.
   void append_log_line(const nlohmann::json& line);
@@ -70,8 +72,16 @@ class DecodeFolder {
   std::filesystem::path dir_;
   Geometry geometry_;
   std::vector<SectorAttempt> final_;     // indexed by LBA
-  std::vector<std::string> old_log_;     // lines already in sectors.jsonl
-  std::vector<std::string> new_log_;     // lines to append
+  // The log is never held in memory, so that a long decode's log cannot grow the process:
+  // this run's lines go to an anonymous temporary file, and write() copies the lines
+  // already on disk (log_on_disk_) and then these into the new sectors.jsonl.
+  struct FileCloser {
+    void operator()(std::FILE* f) const { if (f) std::fclose(f); }
+  };
+  std::unique_ptr<std::FILE, FileCloser> spool_;
+  size_t new_lines_ = 0;
+  bool log_on_disk_ = false;  // dir_/sectors.jsonl holds lines that belong to this folder
+  void spool_line(const std::string& line);
   std::vector<std::vector<uint8_t>> old_image_;  // sector data from an existing image.bin (open())
   nlohmann::json run_ = nlohmann::json::object();
 };

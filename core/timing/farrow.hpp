@@ -19,6 +19,16 @@ namespace salvor::timing {
 std::array<double, 4> cubic_lagrange_weights(double mu);
 
 // The interpolated value at m + mu from x4 = {x[m-1], x[m], x[m+1], x[m+2]}, Farrow form.
-double farrow_cubic(const std::array<double, 4>& x4, double mu);
+// Inline: the PLL calls it twice per bit. The rows are the Lagrange weights expanded by
+// powers of mu; the thirds and sixths are multiplications (a division costs several times
+// more and the PLL does not need the last bit of the rounding).
+inline double farrow_cubic(const std::array<double, 4>& x, double mu) {
+  constexpr double third = 1.0 / 3.0, sixth = 1.0 / 6.0;
+  const double v0 = x[1];
+  const double v1 = -x[0] * third - 0.5 * x[1] + x[2] - x[3] * sixth;
+  const double v2 = 0.5 * (x[0] + x[2]) - x[1];
+  const double v3 = (x[3] - x[0]) * sixth + 0.5 * (x[1] - x[2]);
+  return ((v3 * mu + v2) * mu + v1) * mu + v0;
+}
 
 }  // namespace salvor::timing

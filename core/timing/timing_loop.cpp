@@ -100,21 +100,40 @@ TimingLoop::TimingLoop(const TimingLoopConfig& cfg) : cfg_(cfg) {
   reset();
 }
 
+void TimingLoop::set_track_scales() {
+  inv_gain_ = 1.0 / data_gain_;
+  inv_error_scale_ = 1.0 / (data_gain_ * data_gain_ * data_slope_);
+  inv_lock_average_ = 1.0 / cfg_.lock_average_bits;
+  inv_spb_ = 1.0 / cfg_.samples_per_bit;
+}
+
 void TimingLoop::reset() {
-  const size_t cap = size_t(std::ceil(4 * cfg_.samples_per_bit)) + 16;
+  size_t cap = 1;
+  while (cap < size_t(std::ceil(4 * cfg_.samples_per_bit)) + 16) cap *= 2;
   hist_.assign(cap, 0.0);
+  hist_mask_ = int64_t(cap) - 1;
   newest_ = -1;
   next_time_ = 1.0 + cfg_.samples_per_bit / 2;
   prev_time_ = next_time_ - cfg_.samples_per_bit;
   rate_int_ = 1.0 - 1.0 / (1.0 + cfg_.initial_rate_offset);
   recent_.assign(size_t(2 * cfg_.detect_window), 0.0);
   recent_count_ = 0;
-  fir_line_.assign(fir_.size(), 0.0);
+  detect_old_half_ = detect_new_half_ = 0;
+  detect_energy_ = 0;
+  bits_since_recompute_ = 0;
+  fir_line_.assign(2 * fir_.size(), 0.0);
   fir_pos_ = 0;
+  // The design is symmetric up to rounding; make it exactly so, as the folded prefilter
+  // below (and the tracking update, which keeps it symmetric) assume.
   taps_ = fir_;
+  for (size_t i = 0; i < taps_.size() / 2; ++i)
+    taps_[i] = taps_[taps_.size() - 1 - i] = 0.5 * (taps_[i] + taps_[taps_.size() - 1 - i]);
+  line_power_ = 0;
+  bits_since_power_ = 0;
   recent_q_.assign(kShortWindow, 0.0);
   prev_y_ = prev_dy_ = prev_q_ = prev_dq_ = 0;
   tone_amp_ = data_gain_ = 1;
+  set_track_scales();
   sig_pow_ = err_pow_ = 0;
   pending_shift_ = 0;
   ref_time_ = ref_rate_ = 0;
@@ -146,18 +165,24 @@ double TimingLoop::sample_at(int64_t index) const {
   const int64_t cap = int64_t(hist_.size());
   if (index < 0) return 0.0;  // before the capture: zeros
   if (index > newest_ || index <= newest_ - cap) throw_internal("timing loop: history underrun");
-  return hist_[size_t(index % cap)];
+  return hist_[size_t(index & hist_mask_)];
 }
 
 double TimingLoop::interpolate(double t) const {
-  const double m = std::floor(t);
+  // Instants are >= 0 after the first bit; truncation is floor there (and cheaper).
+  const double m = t >= 0 ? double(int64_t(t)) : std::floor(t);
   const int64_t mi = int64_t(m);
+  if (mi >= 1 && mi + 2 <= newest_ && mi - 1 > newest_ - int64_t(hist_.size())) {  // the usual case
+    const double* h = hist_.data();
+    return farrow_cubic({h[(mi - 1) & hist_mask_], h[mi & hist_mask_], h[(mi + 1) & hist_mask_],
+                         h[(mi + 2) & hist_mask_]},
+                        t - m);
+  }
   return farrow_cubic({sample_at(mi - 1), sample_at(mi), sample_at(mi + 1), sample_at(mi + 2)}, t - m);
 }
 
 Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out) {
   Progress p;
-  const int64_t cap = int64_t(hist_.size());
   for (;;) {
     // Produce every bit whose four interpolation samples are present.
     while (p.produced < out.size() && int64_t(std::floor(next_time_)) + 2 <= newest_) {
@@ -170,30 +195,99 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
       throw_input("timing loop", "non-finite sample at input index " + std::to_string(newest_ + 1));
     }
     ++newest_;
-    hist_[size_t(newest_ % cap)] = x;
+    hist_[size_t(newest_ & hist_mask_)] = x;
     ++p.consumed;
   }
   return p;
 }
 
+namespace {
+// e^{-i pi k / 2} for k mod 4.
+std::complex<double> quarter_turn(uint64_t k) {
+  constexpr double r[4][2] = {{1, 0}, {0, -1}, {-1, 0}, {0, 1}};
+  return {r[k & 3][0], r[k & 3][1]};
+}
+}  // namespace
+
+void TimingLoop::exact_detection_sums(std::complex<double>& old_half, std::complex<double>& new_half,
+                                      double& energy) const {
+  const uint64_t n = recent_.size();
+  const uint64_t w = uint64_t(cfg_.detect_window);
+  old_half = new_half = 0;
+  energy = 0;
+  // Absolute indices k = recent_count_ - w .. recent_count_ - 1 (zeros before the first bit).
+  for (uint64_t j = 0; j < w; ++j) {
+    if (recent_count_ + j < w) continue;
+    const uint64_t k = recent_count_ - w + j;
+    const double y = recent_[k % n];
+    energy += y * y;
+    (j < w / 2 ? old_half : new_half) += y * quarter_turn(k);
+  }
+}
+
+// sum_i a[i] * b[-i] (or a[-i] * b[-i] when both_reversed), in four partial sums so that
+// the additions do not wait on one another.
+static inline double reversed_dot(const double* a, const double* b, size_t n, bool both_reversed = false) {
+  double s0 = 0, s1 = 0, s2 = 0, s3 = 0;
+  const ptrdiff_t sa = both_reversed ? -1 : 1;
+  size_t i = 0;
+  for (; i + 4 <= n; i += 4) {
+    const ptrdiff_t k = ptrdiff_t(i);
+    s0 += a[sa * k] * b[-k];
+    s1 += a[sa * (k + 1)] * b[-(k + 1)];
+    s2 += a[sa * (k + 2)] * b[-(k + 2)];
+    s3 += a[sa * (k + 3)] * b[-(k + 3)];
+  }
+  for (; i < n; ++i) s0 += a[sa * ptrdiff_t(i)] * b[-ptrdiff_t(i)];
+  return (s0 + s1) + (s2 + s3);
+}
+
+void TimingLoop::recompute_detection_sums() {
+  exact_detection_sums(detect_old_half_, detect_new_half_, detect_energy_);
+  bits_since_recompute_ = 0;
+}
+
+void TimingLoop::slide_detection_window(double y) {
+  const uint64_t n = recent_.size();  // 2 * detect_window
+  const uint64_t w = uint64_t(cfg_.detect_window);
+  const uint64_t k = recent_count_;
+  recent_[k % n] = y;
+  ++recent_count_;
+  // Exact sums now and then, so that rounding cannot accumulate over a long capture.
+  if (++bits_since_recompute_ >= 4096) {
+    recompute_detection_sums();
+    return;
+  }
+  detect_new_half_ += y * quarter_turn(k);
+  detect_energy_ += y * y;
+  if (k >= w / 2) {  // the sample that moves from the newer half to the older one
+    const uint64_t m = k - w / 2;
+    const std::complex<double> v = recent_[m % n] * quarter_turn(m);
+    detect_new_half_ -= v;
+    detect_old_half_ += v;
+  }
+  if (k >= w) {  // the sample that leaves the window
+    const uint64_t m = k - w;
+    const double old = recent_[m % n];
+    detect_old_half_ -= old * quarter_turn(m);
+    detect_energy_ -= old * old;
+  }
+}
+
 bool TimingLoop::detect_preamble(double& ratio) const {
   // Energy fraction of the newest detect_window bit samples in the DFT bin at 1/(4T),
-  // computed on two halves so that a frequency offset does not smear the line.
-  const size_t n = recent_.size();
-  const size_t w = size_t(cfg_.detect_window);
-  std::complex<double> x1 = 0, x2 = 0;
-  double energy = 0;
-  const std::complex<double> rot[4] = {{1, 0}, {0, -1}, {-1, 0}, {0, 1}};  // e^{-i pi j / 2}
-  for (size_t j = 0; j < w; ++j) {
-    const double y = recent_[(recent_count_ + n - w + j) % n];  // oldest first
-    energy += y * y;
-    (j < w / 2 ? x1 : x2) += y * rot[j % 4];
-  }
+  // computed on two halves so that a frequency offset does not smear the line. The sums
+  // are kept running by slide_detection_window().
+  const double w = double(cfg_.detect_window);
+  std::complex<double> x1 = detect_old_half_, x2 = detect_new_half_;
+  double energy = detect_energy_;
+  // Near silence the running sums are mostly rounding: use the exact ones.
+  if (energy < 1e-6 * w) exact_detection_sums(x1, x2, energy);
   if (energy <= 0) {
     ratio = 0;
     return false;
   }
-  ratio = 2.0 * (std::norm(x1) + std::norm(x2)) / (energy * double(w) / 2.0);
+  ratio = 2.0 * (std::norm(x1) + std::norm(x2)) / (energy * w / 2.0);
   return ratio > cfg_.detect_threshold;
 }
 
@@ -256,6 +350,7 @@ void TimingLoop::enter_track(double t) {
   double e = 0;
   for (double q : recent_q_) e += q * q;
   data_gain_ = std::max(std::sqrt(2.0 * e / double(recent_q_.size())), 1e-12);
+  set_track_scales();
   sig_pow_ = 0.5;
   err_pow_ = 0;
   prev_q_ = prev_dq_ = 0;
@@ -275,16 +370,31 @@ void TimingLoop::produce_one(BitSample& out) {
   const double y = interpolate(t);
   const double ymid = interpolate(0.5 * (t + prev_time_));
 
-  recent_[recent_count_ % recent_.size()] = y;
-  ++recent_count_;
+  slide_detection_window(y);
 
   // prefilter (runs in every mode so that its delay line is full when tracking starts)
-  fir_line_[fir_pos_] = y;
-  double q = 0;
   const size_t nt = taps_.size();
-  auto line = [&](size_t i) { return fir_line_[(fir_pos_ + nt - i) % nt]; };  // y_{k-i}
-  for (size_t i = 0; i < nt; ++i) {
-    q += taps_[i] * line(i);
+  const double leaving = fir_line_[fir_pos_];  // y_{k-nt}, overwritten now
+  fir_line_[fir_pos_] = y;
+  fir_line_[fir_pos_ + nt] = y;
+  const double* newest = fir_line_.data() + fir_pos_ + nt;  // newest[-i] = y_{k-i}
+  auto line = [&](size_t i) { return newest[-ptrdiff_t(i)]; };
+  // Symmetric taps: fold the line, f_i = y_{k-i} + y_{k-(nt-1-i)} (the tracking update's
+  // gradient too), and take the part that does not wait for this bit's interpolation
+  // first, since y_k is on the loop's bit-to-bit critical path.
+  const size_t half = nt / 2;
+  double fold[32];
+  for (size_t i = 1; i < half; ++i) fold[i] = line(i) + line(nt - 1 - i);
+  fold[half] = line(half);
+  double older = taps_[0] * line(nt - 1);
+  for (size_t i = 1; i <= half; ++i) older += taps_[i] * fold[i];
+  const double q = older + taps_[0] * y;
+  fold[0] = y + line(nt - 1);
+  // Line power for the tracking update, kept running (exact again every 1024 bits).
+  line_power_ += y * y - leaving * leaving;
+  if (++bits_since_power_ >= 1024) {
+    line_power_ = reversed_dot(newest, newest, nt, true);
+    bits_since_power_ = 0;
   }
   recent_q_[stats_.bits % recent_q_.size()] = q;
 
@@ -342,12 +452,16 @@ void TimingLoop::produce_one(BitSample& out) {
       break;
     }
     case TimingState::track: {
+      // Divisions by constants of the lock are products by reciprocals kept since
+      // enter_track(): a division costs several multiplies on this bit-by-bit path.
       const double g = data_gain_;
-      const double u = q / g;
-      const double ud = std::clamp(std::round(2 * u) / 2, -1.0, 1.0);  // EPR4 levels 0, +-1/2, +-1
+      const double u = q * inv_gain_;
+      // EPR4 levels 0, +-1/2, +-1 (nearest; clamped first so the integer cast is safe)
+      const double r = std::clamp(2 * u, -2.0, 2.0);
+      const double ud = double(int(r + (r >= 0 ? 0.5 : -0.5))) / 2;  // round half away, as std::round
       const double d = g * ud;
       const double z = q * prev_dq_ - prev_q_ * d;
-      e = std::clamp(z / (g * g * data_slope_), -0.5, 0.5);
+      e = std::clamp(z * inv_error_scale_, -0.5, 0.5);
       prev_q_ = q;
       prev_dq_ = d;
       // Decision-directed NLMS on the prefilter towards the EPR4 levels, keeping the taps
@@ -356,29 +470,26 @@ void TimingLoop::produce_one(BitSample& out) {
       // the amplitude. Adapts the in-loop filter to the real PW50 (Widrow & Hoff 1960;
       // normalised step as in Haykin, Adaptive Filter Theory).
       if (cfg_.prefilter_step > 0) {
-        double power = 0;
-        for (size_t i = 0; i < nt; ++i) power += line(i) * line(i);
-        const double mu = cfg_.prefilter_step * g / std::max(power, 1e-12);
+        const double mu = cfg_.prefilter_step * g / std::max(line_power_, 1e-12);
         const double err = q - d;
-        for (size_t i = 0; i < nt / 2; ++i) {
-          const double grad = line(i) + line(nt - 1 - i);
-          taps_[i] -= mu * err * grad / 2;
+        for (size_t i = 0; i < half; ++i) {
+          taps_[i] -= mu * err * fold[i] / 2;
           taps_[nt - 1 - i] = taps_[i];
         }
-        taps_[nt / 2] -= mu * err * line(nt / 2);
+        taps_[half] -= mu * err * fold[half];
       }
-      const double a = 1.0 / cfg_.lock_average_bits;
+      const double a = inv_lock_average_;
       sig_pow_ += a * (u * u - sig_pow_);
       err_pow_ += a * ((u - ud) * (u - ud) - err_pow_);
       gains = &track_gains_;
       ++stats_.locked_bits;
       // cycle-slip reference clock: follows the sampling instants with a slower PI loop
-      const double dev = (t - ref_time_) / spb;  // bits, positive: loop later than reference
+      const double dev = (t - ref_time_) * inv_spb_;  // bits, positive: loop later than reference
       if (std::fabs(dev) > 0.5) {
         ++stats_.cycle_slips;
         ref_time_ += std::copysign(spb * (1.0 - ref_rate_), dev);
       }
-      const double er = (ref_time_ - t) / spb;
+      const double er = (ref_time_ - t) * inv_spb_;
       ref_rate_ += reference_gains_.integral * er;
       ref_time_ += spb * (1.0 - ref_rate_ - reference_gains_.proportional * er);
       if (sig_pow_ < cfg_.min_signal_power || err_pow_ > cfg_.max_error_power) {
@@ -408,7 +519,7 @@ void TimingLoop::produce_one(BitSample& out) {
     }
   }
 
-  fir_pos_ = (fir_pos_ + 1) % fir_line_.size();
+  fir_pos_ = fir_pos_ + 1 == nt ? 0 : fir_pos_ + 1;
 
   // loop filter and NCO: step = spb (1 - integrator - K1 e)
   double step = spb * (1.0 - rate_int_);

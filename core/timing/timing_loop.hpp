@@ -45,6 +45,7 @@
 // leaves the grid in place and is not seen here: analysis::SyncSearch compares sync-mark
 // spacing with the track layout for those.
 
+#include <complex>
 #include <cstdint>
 #include <deque>
 #include <span>
@@ -144,7 +145,11 @@ class TimingLoop {
   double sample_at(int64_t index) const;
   void enter_search();
   void enter_track(double t);
+  void set_track_scales();  // reciprocals used per bit while tracking
   bool detect_preamble(double& ratio) const;
+  void slide_detection_window(double y);  // adds y to recent_ and updates the running sums
+  void recompute_detection_sums();
+  void exact_detection_sums(std::complex<double>& old_half, std::complex<double>& new_half, double& energy) const;
   bool zero_phase_start(double min_shift_bits);  // false: residual below min, nothing done
   void push_trace(const TimingTracePoint& p);
   void push_event(const LockEvent& e);
@@ -154,8 +159,9 @@ class TimingLoop {
   std::vector<double> fir_;
   double data_slope_ = 0;
 
-  // input history: a ring indexed by absolute input index
+  // input history: a ring indexed by absolute input index (power-of-two size: index & mask)
   std::vector<double> hist_;
+  int64_t hist_mask_ = 0;
   int64_t newest_ = -1;  // absolute index of the newest input sample
 
   // clock
@@ -173,18 +179,27 @@ class TimingLoop {
   // last bit values for detection / ZPS (ring of detect_window)
   std::vector<double> recent_;
   uint64_t recent_count_ = 0;
+  // Running sums over the newest detect_window entries of recent_, so that preamble
+  // detection costs O(1) per bit: DFT bin 1/(4T) of the older and the newer half (phase
+  // referenced to the absolute bit count, which leaves the norms unchanged) and energy.
+  std::complex<double> detect_old_half_ = 0, detect_new_half_ = 0;
+  double detect_energy_ = 0;
+  int bits_since_recompute_ = 0;
 
   // prefilter delay line (ring of prefilter_taps) and its output history
   std::vector<double> taps_;      // prefilter taps in use (adapted in track mode)
-  std::vector<double> fir_line_;
+  std::vector<double> fir_line_;  // doubled delay line: y_{k-i} = fir_line_[fir_pos_ + nt - i]
   size_t fir_pos_ = 0;
   std::vector<double> recent_q_;  // last 16 prefilter outputs
+  double line_power_ = 0;         // sum of squares over the prefilter line (running)
+  int bits_since_power_ = 0;
 
   // detectors
   double prev_y_ = 0, prev_dy_ = 0;  // tone detector: previous sample and decision
   double prev_q_ = 0, prev_dq_ = 0;  // data detector
   double tone_amp_ = 1;              // P: tone amplitude from ZPS
   double data_gain_ = 1;             // G: EPR4 level of a single transition
+  double inv_gain_ = 1, inv_error_scale_ = 1, inv_lock_average_ = 1, inv_spb_ = 1;  // set_track_scales()
   double sig_pow_ = 0, err_pow_ = 0; // lock detector averages
 
 

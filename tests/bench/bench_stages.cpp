@@ -96,6 +96,30 @@ void BM_Condition(benchmark::State& st) {
 }
 BENCHMARK(BM_Condition)->Unit(benchmark::kMillisecond);
 
+// One conditioning stage at a time (argument: 0 clip, 1 thermal asperity, 2 baseline,
+// 3 dropout, 4 AGC), to see where the conditioner's time goes.
+void BM_ConditionStage(benchmark::State& st) {
+  const auto& x = capture_samples();
+  salvor::ConditionerConfig cc;
+  cc.sample_rate_hz = 250e6;
+  cc.bit_rate_hz = 100e6;
+  const int stage = static_cast<int>(st.range(0));
+  cc.detect_clipping = stage == 0;
+  cc.handle_thermal_asperities = stage == 1;
+  cc.remove_baseline = stage == 2;
+  cc.detect_dropouts = stage == 3;
+  cc.normalise_gain = stage == 4;
+  std::vector<float> out(x.size() + 4096);
+  std::vector<uint8_t> flags(out.size());
+  for (auto _ : st) {
+    salvor::Conditioner c(cc);
+    c.process(x, out, flags);
+    benchmark::DoNotOptimize(out.data());
+  }
+  st.SetItemsProcessed(static_cast<int64_t>(st.iterations() * x.size()));
+}
+BENCHMARK(BM_ConditionStage)->DenseRange(0, 4)->Unit(benchmark::kMillisecond);
+
 void BM_Resample(benchmark::State& st) {
   const auto& x = capture_samples();
   std::vector<float> out(x.size());
