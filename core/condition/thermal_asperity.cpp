@@ -47,6 +47,7 @@ void ThermalAsperityFilter::reset() {
   level_updates_ = 0;
   detect_threshold_ = 0.0f;
   threshold_age_ = 0;
+  above_ = below_ = 0;
   in_span_ = false;
   smooth_ = 0.0;
 }
@@ -65,6 +66,8 @@ std::string ThermalAsperityFilter::describe() const {
   ring_f_[slot] = f;
   ++next_in_;
   window_sum_ += x;
+  above_ += x > detect_threshold_ ? 1u : 0u;
+  below_ += x < -detect_threshold_ ? 1u : 0u;
   if (in_span_) sorted_.insert(std::upper_bound(sorted_.begin(), sorted_.end(), x), x);
 }
 
@@ -72,6 +75,8 @@ std::string ThermalAsperityFilter::describe() const {
   const float x = ring_x_[window_start_ & mask_];
   ++window_start_;
   window_sum_ -= x;
+  above_ -= x > detect_threshold_ ? 1u : 0u;
+  below_ -= x < -detect_threshold_ ? 1u : 0u;
   if (in_span_) sorted_.erase(std::lower_bound(sorted_.begin(), sorted_.end(), x));
 }
 
@@ -91,8 +96,9 @@ void ThermalAsperityFilter::sort_window() {
   std::sort(sorted_.begin(), sorted_.end());
 }
 
-bool ThermalAsperityFilter::median_beyond(float t) const {
-  // For an odd count n, median > t exactly when more than n/2 samples are > t.
+void ThermalAsperityFilter::set_threshold(float t) {
+  // The counts of the window's samples beyond +-t, kept up to date by push and pop.
+  detect_threshold_ = t;
   const float* w = window();
   const size_t n = window_size();
   uint32_t above = 0, below = 0;  // 32-bit counters: four to a vector register
@@ -100,7 +106,14 @@ bool ThermalAsperityFilter::median_beyond(float t) const {
     above += w[k] > t ? 1u : 0u;
     below += w[k] < -t ? 1u : 0u;
   }
-  return above > n / 2 || below > n / 2;
+  above_ = above;
+  below_ = below;
+}
+
+bool ThermalAsperityFilter::median_beyond() const {
+  // For an odd count n, median > t exactly when more than n/2 samples are > t.
+  const size_t n = window_size();
+  return above_ > n / 2 || below_ > n / 2;
 }
 
 [[gnu::always_inline]] inline void ThermalAsperityFilter::emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced) {
@@ -113,10 +126,10 @@ bool ThermalAsperityFilter::median_beyond(float t) const {
   if (warm) {
     if (!in_span_) {
       if (threshold_age_++ % 16 == 0 || detect_threshold_ <= 0.0f)
-        detect_threshold_ = static_cast<float>(cfg_.detect_ratio * std::sqrt(acc_ / weight_));
+        set_threshold(static_cast<float>(cfg_.detect_ratio * std::sqrt(acc_ / weight_)));
       // The count test needs a full window of odd length; the last half window of a
       // capture (flush) takes the exact median instead.
-      const bool beyond = (n == width_) ? median_beyond(detect_threshold_)
+      const bool beyond = (n == width_) ? median_beyond()
                                         : std::abs(exact_median()) > cfg_.detect_ratio * std::sqrt(acc_ / weight_);
       if (beyond) {
         in_span_ = true;

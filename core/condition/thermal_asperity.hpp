@@ -18,8 +18,9 @@
 //
 // Cost: outside a span only the test "median > T or < -T" is needed, and for a full window
 // of odd length n that is exactly "more than n/2 samples above T (below -T)": two counts,
-// vectorised, instead of a sorted window. The threshold T = detect_ratio x rms is refreshed
-// every 16 samples (the rms moves by about 1 % in that time at the default time constant).
+// kept up to date as samples enter and leave, instead of a sorted window. The threshold
+// T = detect_ratio x rms is refreshed (and the counts recounted) every 16 samples; the rms
+// moves by about 1 % in that time at the default time constant.
 // The window is kept sorted only inside a span, where the median's value is used.
 //
 // Output sample i is input sample i; the centred window needs half a window of look-ahead,
@@ -62,7 +63,8 @@ class ThermalAsperityFilter {
   size_t window_size() const { return static_cast<size_t>(next_in_ - window_start_); }
   double exact_median() const;     // of the window as it is now (sorts a copy)
   void sort_window();              // sorted_ := the window, sorted (at a span's start)
-  bool median_beyond(float threshold) const;  // |median| > threshold, full window only
+  bool median_beyond() const;  // |median| > detect_threshold_, full window only
+  void set_threshold(float t);  // detect_threshold_ = t, and the counts beyond it
 
   ThermalAsperityConfig cfg_;
   size_t half_, width_;
@@ -82,6 +84,7 @@ class ThermalAsperityFilter {
   uint64_t level_updates_ = 0;
   float detect_threshold_ = 0.0f;  // detect_ratio x rms, refreshed every 16 samples
   uint64_t threshold_age_ = 0;
+  uint32_t above_ = 0, below_ = 0;  // window samples > detect_threshold_, < -detect_threshold_
   bool in_span_ = false;
   double smooth_ = 0.0;  // low-passed baseline inside a span
   double smooth_alpha_ = 0.0;

@@ -6,6 +6,7 @@
 #include <cctype>
 #include <cstdio>
 
+#include "common/bits.hpp"
 #include "common/error.hpp"
 
 namespace salvor::format {
@@ -26,7 +27,7 @@ Scrambler::Scrambler(const ScramblerConfig& config) : config_(config) {
 }
 
 int Scrambler::next_bit() {
-  const int bit = std::popcount(state_ & config_.taps) & 1;
+  const int bit = parity32(state_ & config_.taps);
   state_ = ((state_ << 1) | static_cast<uint32_t>(bit)) & mask_;
   return bit;
 }

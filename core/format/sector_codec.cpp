@@ -19,10 +19,6 @@ namespace salvor::format {
 
 namespace {
 
-ReedSolomon make_rs(const TrackFormat& fmt) {
-  return ReedSolomon({fmt.rs.field_polynomial, fmt.rs.first_root, fmt.rs.primitive_element,
-                      fmt.rs.parity_symbols, fmt.codeword_bytes});
-}
 
 Scrambler make_scrambler(const TrackFormat& fmt, uint32_t lba) {
   return Scrambler({fmt.scrambler_degree, fmt.scrambler_taps, scrambler_seed_for_lba(lba, fmt.scrambler_degree)});
@@ -89,7 +85,7 @@ std::vector<uint8_t> encode_sector_payload(const TrackFormat& fmt, uint32_t lba,
   make_scrambler(fmt, lba).apply(payload);
 
   const int interleave = fmt.rs.interleave;
-  const ReedSolomon rs = make_rs(fmt);
+  const ReedSolomon rs = make_sector_rs(fmt);
   std::vector<uint8_t> coded(static_cast<size_t>(fmt.coded_bytes));
   std::vector<uint8_t> data(static_cast<size_t>(fmt.codeword_data_bytes));
   for (int i = 0; i < interleave; ++i) {
@@ -100,8 +96,18 @@ std::vector<uint8_t> encode_sector_payload(const TrackFormat& fmt, uint32_t lba,
   return coded;
 }
 
+ReedSolomon make_sector_rs(const TrackFormat& fmt) {
+  return ReedSolomon({fmt.rs.field_polynomial, fmt.rs.first_root, fmt.rs.primitive_element,
+                      fmt.rs.parity_symbols, fmt.codeword_bytes});
+}
+
 PayloadDecode decode_sector_payload(const TrackFormat& fmt, uint32_t lba, std::span<const uint8_t> coded,
                                     std::span<const uint8_t> erasure_flags) {
+  return decode_sector_payload(fmt, make_sector_rs(fmt), lba, coded, erasure_flags);
+}
+
+PayloadDecode decode_sector_payload(const TrackFormat& fmt, const ReedSolomon& rs, uint32_t lba,
+                                    std::span<const uint8_t> coded, std::span<const uint8_t> erasure_flags) {
   PayloadDecode out;
   const int interleave = fmt.rs.interleave;
   if (static_cast<int>(coded.size()) != fmt.coded_bytes ||
@@ -111,7 +117,6 @@ PayloadDecode decode_sector_payload(const TrackFormat& fmt, uint32_t lba, std::s
     out.corrected_per_interleave.assign(static_cast<size_t>(interleave), -1);
     return out;
   }
-  const ReedSolomon rs = make_rs(fmt);
   std::vector<uint8_t> payload(static_cast<size_t>(fmt.payload_bytes));
   std::vector<uint8_t> word(static_cast<size_t>(fmt.codeword_bytes));
   std::vector<int> erasures;

@@ -4,6 +4,7 @@
 
 #include <bit>
 
+#include "common/bits.hpp"
 #include "common/error.hpp"
 
 namespace salvor::format {
@@ -36,7 +37,7 @@ Progress SyncSearch::process(std::span<const uint8_t> in, std::span<SyncHit> out
     ++p.consumed;
     ++seen_;
     if (seen_ < len) continue;
-    const int d = std::popcount(reg_ ^ want_);
+    const int d = popcount64(reg_ ^ want_);
     if (d > config_.tolerance) continue;
     if (!pending_ || d < pending_->distance) pending_ = SyncHit{seen_ - len, d};
   }

@@ -10,6 +10,7 @@
 #include <string>
 #include <vector>
 
+#include "format/reed_solomon.hpp"
 #include "format/sync_search.hpp"
 #include "format/track_format.hpp"
 
@@ -106,6 +107,12 @@ struct PayloadDecode {
 };
 PayloadDecode decode_sector_payload(const TrackFormat& fmt, uint32_t lba, std::span<const uint8_t> coded,
                                     std::span<const uint8_t> erasure_flags = {});
+// The same with the format's Reed-Solomon code built by the caller (make_sector_rs), for
+// callers that decode many sectors or try many erasure sets: building the code's tables
+// costs more than decoding one sector.
+ReedSolomon make_sector_rs(const TrackFormat& fmt);
+PayloadDecode decode_sector_payload(const TrackFormat& fmt, const ReedSolomon& rs, uint32_t lba,
+                                    std::span<const uint8_t> coded, std::span<const uint8_t> erasure_flags = {});
 
 struct ParsedSector {
   SectorPlacement where;          // found position (from the sync mark)

@@ -606,6 +606,7 @@ class TrackFramer {
 
   SectorDecodeOptions decode_options() const {
     SectorDecodeOptions o;
+    o.rs = &rs_;
     o.erasure_search = s_.erasure_search;
     o.chase_bits = s_.chase_bits;
     return o;
@@ -714,6 +715,7 @@ class TrackFramer {
   std::optional<int> cylinder_, head_;
   int revolution_ = 0;
   format::TrackLayout layout_;
+  format::ReedSolomon rs_ = format::make_sector_rs(fmt_);  // built once per capture
 
   std::vector<uint8_t> known_bits_;
   size_t known_len_ = 0, header_bits_ = 0, data_bits_ = 0, margin_ = 0, window_len_ = 0;

@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <optional>
 #include <string>
 
 #include "format/rll89.hpp"
@@ -79,14 +80,15 @@ void cap_flags(std::vector<uint8_t>& f, const std::vector<float>& rel, int I, in
 }
 
 // Plain decode, then the erasure search. Returns the verified attempt, or the plain one.
-Attempt decode_with_erasures(const format::TrackFormat& fmt, uint32_t lba, const std::vector<uint8_t>& coded,
+Attempt decode_with_erasures(const format::TrackFormat& fmt, const format::ReedSolomon& rs, uint32_t lba,
+                             const std::vector<uint8_t>& coded,
                              const std::vector<uint8_t>& erasure, const std::vector<float>& rel, bool search,
                              int* r_used) {
   const int I = fmt.rs.interleave, parity = fmt.rs.parity_symbols;
   Attempt plain;
   plain.flags = erasure;
   cap_flags(plain.flags, rel, I, parity);
-  plain.d = format::decode_sector_payload(fmt, lba, coded, plain.flags);
+  plain.d = format::decode_sector_payload(fmt, rs, lba, coded, plain.flags);
   if (plain.d.verified || !search) return plain;
   std::vector<std::vector<size_t>> order(static_cast<size_t>(I));
   for (size_t t = 0; t < coded.size(); ++t) order[t % static_cast<size_t>(I)].push_back(t);
@@ -97,7 +99,7 @@ Attempt decode_with_erasures(const format::TrackFormat& fmt, uint32_t lba, const
     for (auto& o : order)
       for (int j = 0; j < r && j < static_cast<int>(o.size()); ++j) t.flags[o[static_cast<size_t>(j)]] = 1;
     cap_flags(t.flags, rel, I, parity);
-    t.d = format::decode_sector_payload(fmt, lba, coded, t.flags);
+    t.d = format::decode_sector_payload(fmt, rs, lba, coded, t.flags);
     if (t.d.verified) {
       if (r_used) *r_used = r;
       return t;
@@ -119,9 +121,12 @@ void decode_sector_data(const format::TrackFormat& fmt, const SectorDecodeOption
   if (sb.missing_bytes > 0)
     a.notes.push_back("capture ends inside the sector: " + std::to_string(sb.missing_bytes) + " bytes missing");
 
+  std::optional<format::ReedSolomon> own_rs;
+  const format::ReedSolomon& rs = opt.rs ? *opt.rs : own_rs.emplace(format::make_sector_rs(fmt));
+
   int r_used = 0;
   bool searched = false;  // a search (not plain decoding) verified it: never "good"
-  Attempt best = decode_with_erasures(fmt, lba, sb.coded, sb.erasure, sb.reliability, opt.erasure_search, &r_used);
+  Attempt best = decode_with_erasures(fmt, rs, lba, sb.coded, sb.erasure, sb.reliability, opt.erasure_search, &r_used);
   if (best.d.verified && r_used > 0) searched = true;
   if (best.d.verified && r_used > 0)
     a.notes.push_back("verified with the " + std::to_string(r_used) + " least reliable bytes of each codeword erased");
@@ -159,7 +164,7 @@ void decode_sector_data(const format::TrackFormat& fmt, const SectorDecodeOption
         coded[byte] = dec.byte;
         er[byte] = dec.erasure ? 1 : 0;
       }
-      Attempt t = decode_with_erasures(fmt, lba, coded, er, sb.reliability, false, nullptr);
+      Attempt t = decode_with_erasures(fmt, rs, lba, coded, er, sb.reliability, false, nullptr);
       if (t.d.verified) {
         best = std::move(t);
         found = true;

@@ -13,6 +13,7 @@
 #include <span>
 #include <vector>
 
+#include "format/reed_solomon.hpp"
 #include "format/track_format.hpp"
 #include "results/sector_result.hpp"
 
@@ -39,6 +40,7 @@ SectorBytes sector_bytes_from_bits(const format::TrackFormat& fmt, std::span<con
 struct SectorDecodeOptions {
   bool erasure_search = true;
   int chase_bits = 0;  // 0: no Chase search; else the least reliable bits tried (<= 12)
+  const format::ReedSolomon* rs = nullptr;  // the format's code, built once by the caller; null: built per call
 };
 
 // Fills a.status, data, rs_corrected, rs_erasures, crc, reliabilities, confidence and
