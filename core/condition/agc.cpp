@@ -41,21 +41,29 @@ template <bool with_flags>
 Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
                   std::span<uint8_t> out_flags) {
   const size_t n = std::min(in.size(), out.size());
+  // The state lives in locals for the loop: a flag byte store may alias any member, which
+  // would otherwise force every member to be reloaded after it.
+  double acc = acc_, weight = weight_, gain = gain_;
+  const double alpha = alpha_, retain = retain_, max_gain = cfg_.max_gain, reference = cfg_.reference_rms;
+  const bool frozen = frozen_;
   for (size_t i = 0; i < n; ++i) {
     const double x = in[i];
-    bool update = !frozen_;
+    bool update = !frozen;
     if constexpr (with_flags) {
       out_flags[i] = in_flags[i];
       update = update && in_flags[i] == 0;
     }
     if (update) {
-      acc_ = retain_ * acc_ + alpha_ * (x * x);
-      weight_ = retain_ * weight_ + alpha_;
+      acc = retain * acc + alpha * (x * x);
+      weight = retain * weight + alpha;
       // reference / sqrt(acc / weight) in one division and one square root
-      gain_ = acc_ > 0.0 ? std::min(cfg_.max_gain, cfg_.reference_rms * std::sqrt(weight_ / acc_)) : cfg_.max_gain;
+      gain = acc > 0.0 ? std::min(max_gain, reference * std::sqrt(weight / acc)) : max_gain;
     }
-    out[i] = static_cast<float>(x * gain_);
+    out[i] = static_cast<float>(x * gain);
   }
+  acc_ = acc;
+  weight_ = weight;
+  gain_ = gain;
   return {n, n};
 }
 
