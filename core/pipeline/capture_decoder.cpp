@@ -808,6 +808,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   tc.acquire_bandwidth = settings_.pll_acquire_bandwidth;
   tc.track_bandwidth = settings_.pll_track_bandwidth;
   tc.pw50_bits = settings_.pw50_bits;
+  tc.midpoints = false;  // the framer keeps only the bit instants
   timing::TimingLoop pll(tc);
 
   TrackFramer framer(fmt_, host_, settings_, cap, capture.path.filename().string());

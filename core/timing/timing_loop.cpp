@@ -13,7 +13,8 @@ namespace salvor::timing {
 
 namespace {
 constexpr double kPi = 3.14159265358979323846;
-constexpr int kShortWindow = 16;  // bits for the amplitude / tone checks at mode changes
+constexpr int kShortWindow = 16;  // bits for the amplitude / tone checks at mode changes (a power of two)
+static_assert((kShortWindow & (kShortWindow - 1)) == 0);
 // A locked loop restarts on a preamble only when the tone says it is this far off (bits);
 // a locked loop's phase error at 20 dB is a few hundredths (common practice, no source).
 constexpr double kReacquireShiftBits = 0.2;
@@ -118,6 +119,7 @@ void TimingLoop::reset() {
   rate_int_ = 1.0 - 1.0 / (1.0 + cfg_.initial_rate_offset);
   recent_.assign(size_t(2 * cfg_.detect_window), 0.0);
   recent_count_ = 0;
+  recent_slot_ = 0;
   detect_old_half_ = detect_new_half_ = 0;
   detect_energy_ = 0;
   bits_since_recompute_ = 0;
@@ -161,14 +163,19 @@ std::string TimingLoop::describe() const {
   return buf;
 }
 
-double TimingLoop::sample_at(int64_t index) const {
+namespace {
+// floor() as an index; instants are >= 0, where truncation is floor and needs no library call.
+inline int64_t floor_index(double t) { return t >= 0 ? int64_t(t) : int64_t(std::floor(t)); }
+}  // namespace
+
+[[gnu::always_inline]] inline double TimingLoop::sample_at(int64_t index) const {
   const int64_t cap = int64_t(hist_.size());
   if (index < 0) return 0.0;  // before the capture: zeros
   if (index > newest_ || index <= newest_ - cap) throw_internal("timing loop: history underrun");
   return hist_[size_t(index & hist_mask_)];
 }
 
-double TimingLoop::interpolate(double t) const {
+[[gnu::always_inline]] inline double TimingLoop::interpolate(double t) const {
   // Instants are >= 0 after the first bit; truncation is floor there (and cheaper).
   const double m = t >= 0 ? double(int64_t(t)) : std::floor(t);
   const int64_t mi = int64_t(m);
@@ -185,10 +192,10 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
   Progress p;
   for (;;) {
     // Produce every bit whose four interpolation samples are present.
-    while (p.produced < out.size() && int64_t(std::floor(next_time_)) + 2 <= newest_) {
+    while (p.produced < out.size() && floor_index(next_time_) + 2 <= newest_) {
       produce_one(out[p.produced++]);
     }
-    if (p.produced == out.size() && int64_t(std::floor(next_time_)) + 2 <= newest_) break;
+    if (p.produced == out.size() && floor_index(next_time_) + 2 <= newest_) break;
     if (p.consumed == in.size()) break;
     const float x = in[p.consumed];
     if (!std::isfinite(x)) {
@@ -247,12 +254,16 @@ void TimingLoop::recompute_detection_sums() {
   bits_since_recompute_ = 0;
 }
 
-void TimingLoop::slide_detection_window(double y) {
+[[gnu::always_inline]] inline void TimingLoop::slide_detection_window(double y) {
   const uint64_t n = recent_.size();  // 2 * detect_window
   const uint64_t w = uint64_t(cfg_.detect_window);
   const uint64_t k = recent_count_;
-  recent_[k % n] = y;
+  // Slot of k in the ring, kept by wrapping instead of k % n (a 64-bit division per bit).
+  const uint64_t slot = recent_slot_;
+  recent_[slot] = y;
   ++recent_count_;
+  recent_slot_ = slot + 1 == n ? 0 : slot + 1;
+  auto slot_back = [&](uint64_t d) { return slot >= d ? slot - d : slot + n - d; };  // slot of k - d
   // Exact sums now and then, so that rounding cannot accumulate over a long capture.
   if (++bits_since_recompute_ >= 4096) {
     recompute_detection_sums();
@@ -262,19 +273,19 @@ void TimingLoop::slide_detection_window(double y) {
   detect_energy_ += y * y;
   if (k >= w / 2) {  // the sample that moves from the newer half to the older one
     const uint64_t m = k - w / 2;
-    const std::complex<double> v = recent_[m % n] * quarter_turn(m);
+    const std::complex<double> v = recent_[slot_back(w / 2)] * quarter_turn(m);
     detect_new_half_ -= v;
     detect_old_half_ += v;
   }
   if (k >= w) {  // the sample that leaves the window
     const uint64_t m = k - w;
-    const double old = recent_[m % n];
+    const double old = recent_[slot_back(w)];
     detect_old_half_ -= old * quarter_turn(m);
     detect_energy_ -= old * old;
   }
 }
 
-bool TimingLoop::detect_preamble(double& ratio) const {
+[[gnu::always_inline]] inline bool TimingLoop::detect_preamble(double& ratio) const {
   // Energy fraction of the newest detect_window bit samples in the DFT bin at 1/(4T),
   // computed on two halves so that a frequency offset does not smear the line. The sums
   // are kept running by slide_detection_window().
@@ -287,8 +298,15 @@ bool TimingLoop::detect_preamble(double& ratio) const {
     ratio = 0;
     return false;
   }
-  ratio = 2.0 * (std::norm(x1) + std::norm(x2)) / (energy * w / 2.0);
-  return ratio > cfg_.detect_threshold;
+  // ratio > threshold compared as a product (this runs every bit); the ratio itself is
+  // only worked out when the line is there.
+  const double line = 2.0 * (std::norm(x1) + std::norm(x2));
+  if (!(line > cfg_.detect_threshold * energy * w / 2.0)) {
+    ratio = 0;
+    return false;
+  }
+  ratio = line / (energy * w / 2.0);
+  return true;
 }
 
 bool TimingLoop::zero_phase_start(double min_shift_bits) {
@@ -368,7 +386,7 @@ void TimingLoop::produce_one(BitSample& out) {
   const double spb = cfg_.samples_per_bit;
   const double t = next_time_;
   const double y = interpolate(t);
-  const double ymid = interpolate(0.5 * (t + prev_time_));
+  const double ymid = cfg_.midpoints ? interpolate(0.5 * (t + prev_time_)) : 0.0;
 
   slide_detection_window(y);
 
@@ -396,7 +414,7 @@ void TimingLoop::produce_one(BitSample& out) {
     line_power_ = reversed_dot(newest, newest, nt, true);
     bits_since_power_ = 0;
   }
-  recent_q_[stats_.bits % recent_q_.size()] = q;
+  recent_q_[stats_.bits & (kShortWindow - 1)] = q;  // kShortWindow is a power of two
 
   double e = 0;  // timing error, bits, positive = late
   const LoopGains* gains = nullptr;

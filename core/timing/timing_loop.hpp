@@ -77,6 +77,7 @@ struct TimingLoopConfig {
   size_t trace_capacity = 4096;      // trace points and lock events kept until drained
   double position_offset = 0.0;      // capture position = offset + scale * input index
   double position_scale = 1.0;
+  bool midpoints = true;             // also interpolate half way between bit instants (BitSample::midpoint; 0 when off)
 };
 
 enum class TimingState : uint8_t { search = 0, acquire = 1, track = 2 };
@@ -179,6 +180,7 @@ class TimingLoop {
   // last bit values for detection / ZPS (ring of detect_window)
   std::vector<double> recent_;
   uint64_t recent_count_ = 0;
+  uint64_t recent_slot_ = 0;  // recent_count_ % recent_.size()
   // Running sums over the newest detect_window entries of recent_, so that preamble
   // detection costs O(1) per bit: DFT bin 1/(4T) of the older and the newer half (phase
   // referenced to the absolute bit count, which leaves the norms unchanged) and energy.

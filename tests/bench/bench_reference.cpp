@@ -288,6 +288,7 @@ void bench_timing(const Options& o) {
   salvor::timing::TimingLoopConfig tc;
   tc.samples_per_bit = 2.0;
   tc.pw50_bits = 2.3;
+  tc.midpoints = false;  // one sample per bit out, as symsync gives (the decoder runs it so too)
   uint64_t locked = 0, salvor_bits = 0;
   auto run_salvor = [&] {
     salvor::timing::TimingLoop pll(tc);

@@ -246,6 +246,31 @@ TEST(TimingLoop, ChunkingInvariance) {
   }
 }
 
+// Midpoints are an output only: turning them off (as the decoder does) must leave every
+// bit instant, value and state exactly as they were.
+TEST(TimingLoop, MidpointsOffChangesNothingElse) {
+  TrackSpec s;
+  s.sectors = 3;
+  s.data_bits = 800;
+  s.rate_offset = 0.003;
+  const Track tr = make_track(s);
+  auto cfg = config_for(s);
+  const LoopRun with = run_loop(cfg, tr.samples, 4096);
+  cfg.midpoints = false;
+  const LoopRun without = run_loop(cfg, tr.samples, 4096);
+  ASSERT_GT(with.out.size(), 2000u);
+  ASSERT_EQ(without.out.size(), with.out.size());
+  size_t nonzero = 0;
+  for (size_t i = 0; i < with.out.size(); ++i) {
+    ASSERT_EQ(without.out[i].value, with.out[i].value) << i;
+    ASSERT_EQ(without.out[i].position, with.out[i].position) << i;
+    ASSERT_EQ(without.out[i].state, with.out[i].state) << i;
+    ASSERT_EQ(without.out[i].midpoint, 0.0f) << i;
+    nonzero += with.out[i].midpoint != 0.0f;
+  }
+  EXPECT_GT(nonzero, with.out.size() / 2);  // the default does interpolate them
+}
+
 TEST(TimingLoop, CopyMidStreamAndResetAgree) {
   TrackSpec s;
   s.sectors = 2;
