@@ -33,6 +33,7 @@ extern "C" {
 #include <string>
 #include <vector>
 
+#include "bench_signal.hpp"
 #include "equalize/equalizer.hpp"
 #include "format/crc.hpp"
 #include "format/reed_solomon.hpp"
@@ -138,37 +139,6 @@ void note(const std::string& s) { notes.push_back(s); }
 // ---------------------------------------------------------------------------------------
 // Inputs
 
-// A Lorentzian readback (PW50 = 2.3 bits) of random NRZI data with a 128-bit 2T preamble
-// every 5000 bits, at `spb` samples per bit, plus white noise (rms 0.05 of the isolated
-// pulse peak): a stand-in capture, as in bench_stages.
-std::vector<float> readback(size_t samples, double spb, uint32_t seed) {
-  std::mt19937 rng(seed);
-  std::normal_distribution<double> noise(0.0, 0.05);
-  const size_t bits = static_cast<size_t>(samples / spb) + 64;
-  std::vector<int> level(bits);
-  int l = -1;
-  for (size_t k = 0; k < bits; ++k) {
-    const bool t = (k % 5000) < 128 ? (k % 2 == 1) : (rng() & 1);
-    if (t) l = -l;
-    level[k] = l;
-  }
-  const double pw = 2.3;
-  std::vector<float> x(samples);
-  for (size_t n = 0; n < samples; ++n) {
-    const double t = n / spb;
-    double v = 0;
-    const long k0 = static_cast<long>(t) - 20, k1 = static_cast<long>(t) + 20;
-    for (long k = std::max(1L, k0); k <= k1 && k < static_cast<long>(bits); ++k) {
-      const double b = 0.5 * (level[static_cast<size_t>(k)] - level[static_cast<size_t>(k - 1)]);
-      if (b == 0) continue;
-      const double u = 2.0 * (t - k) / pw;
-      v += b / (1.0 + u * u);
-    }
-    x[n] = static_cast<float>(v + noise(rng));
-  }
-  return x;
-}
-
 constexpr size_t kBlock = 4096;  // streaming block, input samples
 
 // ---------------------------------------------------------------------------------------
@@ -225,7 +195,7 @@ double alias_db(std::span<const float> y) {
 
 void bench_resampler(const Options& o) {
   const double in_rate = 250e6;
-  const std::vector<float> x = readback(1 << 20, 2.5, 1);
+  const std::vector<float> x = salvor::bench::readback(1 << 20, 2.5, 1);
   std::vector<float> out(x.size() + 65536);
 
   // The tone check: 1.1x output Nyquist lies beyond both filters' stopband edge.
@@ -283,7 +253,7 @@ void bench_resampler(const Options& o) {
 // Timing recovery vs liquid symsync_rrrf
 
 void bench_timing(const Options& o) {
-  const std::vector<float> x = readback(1 << 20, 2.0, 2);
+  const std::vector<float> x = salvor::bench::readback(1 << 20, 2.0, 2);
   std::vector<salvor::timing::BitSample> bits(kBlock);
   salvor::timing::TimingLoopConfig tc;
   tc.samples_per_bit = 2.0;

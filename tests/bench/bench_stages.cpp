@@ -9,6 +9,7 @@
 #include <random>
 #include <vector>
 
+#include "bench_signal.hpp"
 #include "condition/conditioner.hpp"
 #include "detect/detector.hpp"
 #include "detect/plugin_host.hpp"
@@ -18,37 +19,8 @@
 
 namespace {
 
-// A Lorentzian readback (PW50 = 2.3 bits) of random NRZI data with a 2T preamble every
-// 5000 bits, sampled at `spb` samples per bit, plus white noise: a stand-in capture.
-std::vector<float> readback(size_t samples, double spb, uint32_t seed = 1) {
-  std::mt19937 rng(seed);
-  std::normal_distribution<double> noise(0.0, 0.05);
-  const size_t bits = static_cast<size_t>(samples / spb) + 64;
-  std::vector<int> level(bits);
-  int l = -1;
-  for (size_t k = 0; k < bits; ++k) {
-    bool t = (k % 5000) < 128 ? (k % 2 == 1) : (rng() & 1);
-    if (t) l = -l;
-    level[k] = l;
-  }
-  const double pw = 2.3;
-  std::vector<float> x(samples);
-  for (size_t n = 0; n < samples; ++n) {
-    double t = n / spb, v = 0;
-    long k0 = static_cast<long>(t) - 20, k1 = static_cast<long>(t) + 20;
-    for (long k = std::max(1L, k0); k <= k1 && k < static_cast<long>(bits); ++k) {
-      double b = 0.5 * (level[static_cast<size_t>(k)] - level[static_cast<size_t>(k - 1)]);
-      if (b == 0) continue;
-      double u = 2.0 * (t - k) / pw;
-      v += b / (1.0 + u * u);
-    }
-    x[n] = static_cast<float>(v + noise(rng));
-  }
-  return x;
-}
-
 const std::vector<float>& capture_samples() {
-  static const std::vector<float> x = readback(1 << 20, 2.5);
+  static const std::vector<float> x = salvor::bench::readback(1 << 20, 2.5, 1);
   return x;
 }
 
@@ -138,7 +110,7 @@ void BM_Resample(benchmark::State& st) {
 BENCHMARK(BM_Resample)->Unit(benchmark::kMillisecond);
 
 void BM_Pll(benchmark::State& st) {
-  static const std::vector<float> x = readback(1 << 20, 2.0, 2);
+  static const std::vector<float> x = salvor::bench::readback(1 << 20, 2.0, 2);
   std::vector<salvor::timing::BitSample> out(x.size());
   for (auto _ : st) {
     salvor::timing::TimingLoopConfig tc;
