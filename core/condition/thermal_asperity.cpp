@@ -161,11 +161,113 @@ bool ThermalAsperityFilter::median_beyond() const {
   ++produced;
 }
 
+size_t ThermalAsperityFilter::run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags,
+                                         size_t k, size_t n, size_t& produced, bool& opens) {
+  // The steady state outside a span (full window, warm level, one output per input), with
+  // the state in locals: a flag byte store may alias any member, and would otherwise force
+  // every member to be reloaded after it. Same arithmetic as push / pop_oldest /
+  // emit_center; stops (opens = true) on the sample whose test opens a span, which the
+  // caller then emits the general way, or when the state leaves the steady case.
+  opens = false;
+  float* rx = ring_x_.data();
+  const uint8_t* rf = ring_f_.data();
+  uint8_t* rfw = ring_f_.data();
+  const uint64_t mask = mask_, cap = mask_ + 1;
+  const size_t width = width_, half_count = width_ / 2;
+  uint64_t nin = next_in_, ws = window_start_, nc = next_center_, since = since_exact_sum_, lu = level_updates_,
+           age = threshold_age_;
+  double sum = window_sum_, acc = acc_, weight = weight_;
+  const double alpha = alpha_, retain = retain_;
+  float thr = detect_threshold_;
+  uint32_t above = above_, below = below_;
+  auto store = [&] {
+    next_in_ = nin;
+    window_start_ = ws;
+    next_center_ = nc;
+    since_exact_sum_ = since;
+    level_updates_ = lu;
+    threshold_age_ = age;
+    window_sum_ = sum;
+    acc_ = acc;
+    weight_ = weight;
+    detect_threshold_ = thr;
+    above_ = above;
+    below_ = below;
+  };
+  for (; k < n; ++k) {
+    if (!(acc > 0.0 && weight > 0.0)) break;  // level gone (long silence): the general path
+    // pop the oldest, push the new sample
+    const float old = rx[ws & mask];
+    ++ws;
+    const float x_in = in[k];
+    const uint64_t slot = nin & mask;
+    rx[slot] = x_in;
+    rx[slot + cap] = x_in;
+    rfw[slot] = in_flags[k];
+    ++nin;
+    sum += static_cast<double>(x_in) - static_cast<double>(old);
+    above += (x_in > thr ? 1u : 0u) - (old > thr ? 1u : 0u);
+    below += (x_in < -thr ? 1u : 0u) - (old < -thr ? 1u : 0u);
+    if (++since >= 4096) {
+      since = 0;
+      sum = 0.0;
+      const float* w = rx + (ws & mask);
+      for (size_t j = 0; j < width; ++j) sum += w[j];
+    }
+    // the centre's test
+    if (age++ % 16 == 0) {
+      thr = static_cast<float>(cfg_.detect_ratio * std::sqrt(acc / weight));
+      const float* w = rx + (ws & mask);
+      uint32_t a = 0, b = 0;
+      for (size_t j = 0; j < width; ++j) {
+        a += w[j] > thr ? 1u : 0u;
+        b += w[j] < -thr ? 1u : 0u;
+      }
+      above = a;
+      below = b;
+    }
+    if (above > half_count || below > half_count) {
+      --age;  // the general emit repeats this sample's threshold step (same value)
+      store();
+      opens = true;
+      return k + 1;
+    }
+    const uint64_t i = nc++;
+    const float x = rx[i & mask];
+    const uint8_t f = rf[i & mask];
+    if (f == 0) {
+      const double r = x - sum / static_cast<double>(width);  // as emit_center, to the bit
+      acc = retain * acc + alpha * (r * r);
+      weight = retain * weight + alpha;
+      ++lu;
+    }
+    out[produced] = x;
+    out_flags[produced] = f;
+    ++produced;
+  }
+  store();
+  return k;
+}
+
 Progress ThermalAsperityFilter::process(std::span<const float> in, std::span<const uint8_t> in_flags,
                                         std::span<float> out, std::span<uint8_t> out_flags) {
   const size_t n = std::min(in.size(), out.size());
   size_t produced = 0;
   for (size_t k = 0; k < n; ++k) {
+    const bool steady = !in_span_ && level_updates_ >= width_ && weight_ > 0.0 && acc_ > 0.0 &&
+                        detect_threshold_ > 0.0f && next_in_ - window_start_ == width_ &&
+                        next_in_ == next_center_ + half_;
+    if (steady) {
+      const size_t k0 = k;
+      bool opens = false;
+      k = run_steady(in.data(), in_flags.data(), out.data(), out_flags.data(), k, n, produced, opens);
+      if (opens) emit_center(out, out_flags, produced);  // that sample is pushed; emit it the general way
+      if (k >= n) break;
+      if (k != k0) {
+        --k;  // the loop's ++k: continue at sample k
+        continue;
+      }
+    }
     // Window of the next centre c: [c - half, c + half]; drop what falls out first.
     if (next_in_ - window_start_ == width_) pop_oldest();
     push(in[k], in_flags[k]);

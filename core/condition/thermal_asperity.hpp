@@ -64,7 +64,9 @@ class ThermalAsperityFilter {
   double exact_median() const;     // of the window as it is now (sorts a copy)
   void sort_window();              // sorted_ := the window, sorted (at a span's start)
   bool median_beyond() const;  // |median| > detect_threshold_, full window only
-  void set_threshold(float t);  // detect_threshold_ = t, and the counts beyond it
+  void set_threshold(float t);
+  size_t run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags, size_t k, size_t n,
+                    size_t& produced, bool& opens);  // detect_threshold_ = t, and the counts beyond it
 
   ThermalAsperityConfig cfg_;
   size_t half_, width_;

@@ -348,6 +348,83 @@ TEST(ThermalAsperity, RunningMedianEqualsBruteForce) {
   EXPECT_GT(compared, x.size() / 2);  // the span did open and stayed open
 }
 
+// The filter's fast paths (count test, running sums, the steady loop with its state in
+// locals) against a direct transcription of the algorithm in its header: the exact
+// median and mean of every centred window, recomputed from scratch. Two pops of different
+// heights, so that spans open, are suppressed and close. Flags and output samples must be
+// identical (the level tracker's sums may differ in rounding only, which does not move a
+// decision on this input).
+TEST(ThermalAsperity, EqualsDirectTranscription) {
+  const auto clean = readback(12000, 12);
+  const auto ta1 = asperity(clean.size(), 3000 * static_cast<size_t>(spb), 4.0, 1.0, 300.0);
+  const auto ta2 = asperity(clean.size(), 8000 * static_cast<size_t>(spb), -6.0, 2.0, 500.0);
+  std::vector<float> x(clean.size());
+  for (size_t i = 0; i < x.size(); ++i) x[i] = clean[i] + ta1[i] + ta2[i];
+  ThermalAsperityConfig c;
+  c.samples_per_bit = spb;
+  ThermalAsperityFilter f(c);
+  const auto r = run_stage(f, x, 1000);
+  ASSERT_EQ(r.x.size(), x.size());
+
+  const size_t h = std::max<size_t>(1, static_cast<size_t>(std::lround(0.5 * c.window_bits * spb)));
+  const size_t width = 2 * h + 1;
+  const double alpha = 1.0 - std::exp(-1.0 / (c.level_time_constant_bits * spb)), retain = 1.0 - alpha;
+  const double smooth_alpha = 1.0 - std::exp(-1.0 / static_cast<double>(width));
+  double acc = 0, weight = 0, smooth = 0;
+  uint64_t updates = 0, age = 0;
+  float thr = 0;
+  bool in_span = false;
+  size_t spans_opened = 0;
+  for (size_t i = 0; i < x.size(); ++i) {
+    const size_t lo = i >= h ? i - h : 0, hi = std::min(x.size() - 1, i + h);
+    std::vector<float> w(x.begin() + static_cast<long>(lo), x.begin() + static_cast<long>(hi) + 1);
+    const size_t n = w.size();
+    double sum = 0;
+    for (float v : w) sum += v;
+    std::vector<float> sorted = w;
+    std::sort(sorted.begin(), sorted.end());
+    const double median = (n % 2) ? sorted[n / 2] : 0.5 * (static_cast<double>(sorted[n / 2 - 1]) + sorted[n / 2]);
+    double b = 0;
+    if (updates >= width && weight > 0 && acc > 0) {
+      if (!in_span) {
+        if (age++ % 16 == 0 || thr <= 0) thr = static_cast<float>(c.detect_ratio * std::sqrt(acc / weight));
+        bool beyond;
+        if (n == width) {
+          const auto above = std::count_if(w.begin(), w.end(), [&](float v) { return v > thr; });
+          const auto below = std::count_if(w.begin(), w.end(), [&](float v) { return v < -thr; });
+          beyond = static_cast<size_t>(above) > n / 2 || static_cast<size_t>(below) > n / 2;
+        } else {
+          beyond = std::abs(median) > c.detect_ratio * std::sqrt(acc / weight);
+        }
+        if (beyond) {
+          in_span = true;
+          ++spans_opened;
+          b = median;
+          smooth = b;
+        }
+      } else {
+        b = median;
+        smooth += smooth_alpha * (b - smooth);
+        if (smooth * smooth * weight < c.release_ratio * c.release_ratio * acc) in_span = false;
+      }
+    }
+    double y = x[i];
+    uint8_t flag = 0;
+    if (in_span) {
+      flag = flag_thermal_asperity;
+      y = x[i] - b;
+    } else {
+      const double res = x[i] - sum / static_cast<double>(n);
+      acc = retain * acc + alpha * (res * res);
+      weight = retain * weight + alpha;
+      ++updates;
+    }
+    ASSERT_EQ(r.f[i], flag) << "sample " << i;
+    ASSERT_EQ(r.x[i], static_cast<float>(y)) << "sample " << i;
+  }
+  EXPECT_EQ(spans_opened, 2u);
+}
+
 // ---------------------------------------------------------------- dropout
 
 // An abrupt 200-bit dropout (envelope x 0.05): flagged from within half a window after
