@@ -75,11 +75,64 @@ std::string DropoutDetector::describe() const {
   ++produced;
 }
 
+size_t DropoutDetector::run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags, size_t k,
+                                   size_t n, size_t& produced) {
+  // The steady state (full window, one output per input) with the state in locals, since a
+  // flag byte store may alias any member. Same arithmetic, in the same order, as
+  // process / pop_oldest / emit_center.
+  float* rx = ring_x_.data();
+  uint8_t* rf = ring_f_.data();
+  const uint64_t mask = mask_;
+  const size_t width = width_;
+  uint64_t nin = next_in_, ws = window_start_, nc = next_center_, since = since_recompute_, lu = level_updates_;
+  double sum = sum_abs_, acc = acc_, weight = weight_;
+  const double alpha = alpha_, retain = retain_, threshold = cfg_.threshold;
+  const double count = static_cast<double>(width);
+  for (; k < n; ++k) {
+    sum -= std::abs(rx[ws & mask]);
+    ++ws;
+    rx[nin & mask] = in[k];
+    rf[nin & mask] = in_flags[k];
+    sum += std::abs(in[k]);
+    ++nin;
+    if (++since >= width) {
+      since = 0;
+      sum = 0.0;
+      for (uint64_t j = ws; j < nin; ++j) sum += std::abs(rx[j & mask]);
+    }
+    const uint64_t i = nc++;
+    const float x = rx[i & mask];
+    uint8_t f = rf[i & mask];
+    if (lu >= width && weight > 0.0 && sum * weight < threshold * acc * count) f |= flag_dropout;
+    if (f == 0) {
+      acc = retain * acc + alpha * std::abs(x);
+      weight = retain * weight + alpha;
+      ++lu;
+    }
+    out[produced] = x;
+    out_flags[produced] = f;
+    ++produced;
+  }
+  next_in_ = nin;
+  window_start_ = ws;
+  next_center_ = nc;
+  since_recompute_ = since;
+  level_updates_ = lu;
+  sum_abs_ = sum;
+  acc_ = acc;
+  weight_ = weight;
+  return k;
+}
+
 Progress DropoutDetector::process(std::span<const float> in, std::span<const uint8_t> in_flags,
                                   std::span<float> out, std::span<uint8_t> out_flags) {
   const size_t n = std::min(in.size(), out.size());
   size_t produced = 0;
   for (size_t k = 0; k < n; ++k) {
+    if (next_in_ - window_start_ == width_ && next_in_ == next_center_ + half_) {
+      run_steady(in.data(), in_flags.data(), out.data(), out_flags.data(), k, n, produced);
+      break;  // it runs to the end of the input
+    }
     if (next_in_ - window_start_ == width_) pop_oldest();
     ring_x_[next_in_ & mask_] = in[k];
     ring_f_[next_in_ & mask_] = in_flags[k];

@@ -42,6 +42,8 @@ class DropoutDetector {
  private:
   void emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced);
   void pop_oldest();
+  size_t run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags, size_t k, size_t n,
+                    size_t& produced);
   DropoutDetectorConfig cfg_;
   size_t half_, width_;
   double alpha_;
