@@ -209,6 +209,17 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
 }
 
 namespace {
+// sum += y e^{-i pi k / 2}: one real addition or subtraction (the rotation is a quarter turn).
+inline void add_rotated(std::complex<double>& sum, double y, uint64_t k) {
+  double* c = reinterpret_cast<double*>(&sum);  // [real, imaginary], as the standard lays it out
+  switch (k & 3) {
+    case 0: c[0] += y; break;
+    case 1: c[1] -= y; break;
+    case 2: c[0] -= y; break;
+    default: c[1] += y; break;
+  }
+}
+
 // e^{-i pi k / 2} for k mod 4.
 std::complex<double> quarter_turn(uint64_t k) {
   constexpr double r[4][2] = {{1, 0}, {0, -1}, {-1, 0}, {0, 1}};
@@ -269,18 +280,18 @@ void TimingLoop::recompute_detection_sums() {
     recompute_detection_sums();
     return;
   }
-  detect_new_half_ += y * quarter_turn(k);
+  add_rotated(detect_new_half_, y, k);
   detect_energy_ += y * y;
   if (k >= w / 2) {  // the sample that moves from the newer half to the older one
     const uint64_t m = k - w / 2;
-    const std::complex<double> v = recent_[slot_back(w / 2)] * quarter_turn(m);
-    detect_new_half_ -= v;
-    detect_old_half_ += v;
+    const double v = recent_[slot_back(w / 2)];
+    add_rotated(detect_new_half_, -v, m);
+    add_rotated(detect_old_half_, v, m);
   }
   if (k >= w) {  // the sample that leaves the window
     const uint64_t m = k - w;
     const double old = recent_[slot_back(w)];
-    detect_old_half_ -= old * quarter_turn(m);
+    add_rotated(detect_old_half_, -old, m);
     detect_energy_ -= old * old;
   }
 }
