@@ -240,7 +240,7 @@ class TrackFramer {
     feed_coarse_detector(std::span<const float>(out.data(), n), true);
     if (auto last = sync_->flush()) add_hit(*last);
     decode_ready(true);
-    place_deferred();
+    place_deferred(true);
   }
 
   std::vector<SectorAttempt> take_results() { return std::move(results_); }
@@ -586,9 +586,11 @@ class TrackFramer {
     }
     if (a.header_ok) {
       anchors_.push_back({a.capture_position, a.sector});
+      if (anchors_.size() > kAnchorWindow) anchors_.pop_front();
       decode_sector_data(fmt_, decode_options(), sb, a);
       if (late_note) a.notes.push_back(late_note);
       emit(std::move(a));
+      place_deferred(false);  // header-failed sectors before this one can be placed now
     } else {
       a.notes.push_back("header unreadable");
       if (late_note) a.notes.push_back(late_note);
@@ -614,13 +616,21 @@ class TrackFramer {
 
   // Places sectors whose header failed, from their distance to sectors whose header
   // verified: the layout fixes the bit distance between any two sectors of a track.
-  void place_deferred() {
+  // Places the header-failed sectors that have a verified neighbour after them (all of
+  // them at the end), so that they do not pile up over a long capture. Uses the last
+  // kAnchorWindow verified headers, which hold the nearest one before and after each.
+  void place_deferred(bool at_end) {
     if (deferred_.empty()) return;
+    size_t ready = 0;
+    while (ready < deferred_.size() &&
+           (at_end || (!anchors_.empty() && anchors_.back().position > deferred_[ready].attempt.capture_position)))
+      ++ready;
+    if (ready == 0) return;
     // Capture samples per channel bit: the median over consecutive anchors (the layout
     // gives their distance in bits, modulo the track length), else the nominal figure.
     double spb = 0;
     {
-      std::vector<Anchor> sorted = anchors_;
+      std::vector<Anchor> sorted(anchors_.begin(), anchors_.end());
       std::sort(sorted.begin(), sorted.end(), [](const Anchor& p, const Anchor& q) { return p.position < q.position; });
       std::vector<double> est;
       const double per_track = static_cast<double>(fmt_.bits_per_track);
@@ -637,7 +647,8 @@ class TrackFramer {
       }
     }
     if (spb <= 0) spb = capture_samples_per_bit_;
-    for (auto& d : deferred_) {
+    for (size_t di = 0; di < ready; ++di) {
+      Deferred& d = deferred_[di];
       SectorAttempt& a = d.attempt;
       int sector = -1;
       std::string how;
@@ -695,7 +706,7 @@ class TrackFramer {
         keep_eye(std::move(d.eye_samples), std::move(d.eye_ideal));
       emit(std::move(best));
     }
-    deferred_.clear();
+    deferred_.erase(deferred_.begin(), deferred_.begin() + static_cast<long>(ready));
   }
 
  public:
@@ -744,7 +755,8 @@ class TrackFramer {
   std::unique_ptr<equalize::Equalizer> fine_eq_;
   std::unique_ptr<detect::Detector> fine_det_;
 
-  std::vector<Anchor> anchors_;
+  static constexpr size_t kAnchorWindow = 64;  // verified headers kept for placement
+  std::deque<Anchor> anchors_;
   std::vector<Deferred> deferred_;
   std::vector<SectorAttempt> results_;
   const SectorSink* sink_ = nullptr;
