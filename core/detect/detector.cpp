@@ -1,6 +1,7 @@
 #include "detect/detector.hpp"
 
 #include <cerrno>
+#include <cfloat>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
@@ -168,6 +169,15 @@ void Detector::check_output(const char* call, size_t produced, size_t capacity, 
     throw_internal("detector " + plugin_->info.name + ": " + call + " reported " + std::to_string(produced) +
                    " bits, more than the room for " + std::to_string(capacity));
   }
+  // A branch-free pass first (vectorised): is any bit above 1, any LLR not finite, or any
+  // sign against its bit? Only then look for the first offender, to name it.
+  bool bad = false;
+  for (size_t i = 0; i < produced; ++i) {
+    const uint8_t b = bits[i];
+    const float l = llr[i];
+    bad |= (b > 1) | !(std::fabs(l) <= FLT_MAX) | ((b == 1) & (l < 0.0f)) | ((b == 0) & (l > 0.0f));
+  }
+  if (!bad) return;
   for (size_t i = 0; i < produced; ++i) {
     const uint8_t b = bits[i];
     const float l = llr[i];
