@@ -66,15 +66,16 @@ class OrderedRecorder {
       : folder_(folder), pending_(captures), finished_(captures, false), limit_(limit) {}
 
   void add(size_t capture, results::SectorAttempt&& a) {
+    std::string line = results::to_json(a).dump();  // rendered outside the lock
     std::unique_lock<std::mutex> lock(mu_);
     if (capture != head_ && pending_[capture].size() >= limit_)
       moved_.wait(lock, [&] { return capture == head_ || aborted_; });
     if (aborted_) throw_internal("decode stopped: another capture failed");
     if (capture == head_) {
-      folder_.record(std::move(a));
+      folder_.record(std::move(a), line);
       ++recorded_;
     } else {
-      pending_[capture].push_back(std::move(a));
+      pending_[capture].push_back({std::move(a), std::move(line)});
     }
   }
 
@@ -84,8 +85,8 @@ class OrderedRecorder {
     while (head_ < finished_.size() && finished_[head_]) {
       ++head_;
       if (head_ < pending_.size()) {
-        for (auto& a : pending_[head_]) {
-          folder_.record(std::move(a));
+        for (auto& [a, line] : pending_[head_]) {
+          folder_.record(std::move(a), line);
           ++recorded_;
         }
         pending_[head_] = {};
@@ -107,7 +108,7 @@ class OrderedRecorder {
   results::DecodeFolder& folder_;
   std::mutex mu_;
   std::condition_variable moved_;
-  std::vector<std::vector<results::SectorAttempt>> pending_;
+  std::vector<std::vector<std::pair<results::SectorAttempt, std::string>>> pending_;
   std::vector<bool> finished_;
   size_t head_ = 0;
   size_t limit_;

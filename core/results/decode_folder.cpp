@@ -118,9 +118,14 @@ DecodeFolder DecodeFolder::open(const fs::path& dir) {
 }
 
 bool DecodeFolder::record(SectorAttempt attempt) {
+  const std::string line = to_json(attempt).dump();
+  return record(std::move(attempt), line);
+}
+
+bool DecodeFolder::record(SectorAttempt attempt, const std::string& log_line) {
   if (attempt.lba >= final_.size())
     throw_internal("sector attempt for lba " + std::to_string(attempt.lba) + " outside the image");
-  spool_line(to_json(attempt).dump());
+  spool_line(log_line);
   SectorAttempt& cur = final_[attempt.lba];
   if (cur.status == SectorStatus::conflict) return false;  // only a merge resolves a conflict
   if (!better_than(attempt, cur)) return false;

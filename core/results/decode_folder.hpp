@@ -46,6 +46,9 @@ class DecodeFolder {
   // Records one attempt (appended to the log) and keeps it as the sector's final
   // result when it is better (better_than). Returns true if it became the final result.
   bool record(SectorAttempt attempt);
+  // The same with the attempt's log line already made (to_json(attempt).dump()), so that
+  // parallel workers can render it before they take the lock around the folder.
+  bool record(SectorAttempt attempt, const std::string& log_line);
 
   const Geometry& geometry() const { return geometry_; }
   const std::vector<SectorAttempt>& final_attempts() const { return final_; }
