@@ -419,8 +419,16 @@ class TrackFramer {
     const size_t L = static_cast<size_t>(w1 - w0);
     const size_t k0 = margin_;                 // preamble start within the window
     const size_t ks = sync_end - w0;           // first header bit within the window
-    std::vector<float> x(L), cy(L);
-    std::vector<uint8_t> cb(L), er(L);
+    // Per-window buffers live in the framer (no allocation and zero fill per sector);
+    // every element used below is written first.
+    auto& x = scratch_.x;
+    auto& cy = scratch_.cy;
+    auto& cb = scratch_.cb;
+    auto& er = scratch_.er;
+    x.resize(L);
+    cy.resize(L);
+    cb.resize(L);
+    er.resize(L);
     for (size_t i = 0; i < L; ++i) {
       const RingEntry& e = at(w0 + i);
       x[i] = e.value;
@@ -429,7 +437,8 @@ class TrackFramer {
       er[i] = e.flag != 0;
     }
     // Training levels: known bits where the format fixes them, coarse decisions elsewhere.
-    std::vector<uint8_t> tb = cb;
+    auto& tb = scratch_.tb;
+    tb.assign(cb.begin(), cb.end());
     for (size_t i = 0; i < known_len_ && k0 + i < L; ++i) tb[k0 + i] = known_bits_[i];
     std::vector<int8_t> lv = levels_from_nrzi(tb, 1);
     // Polarity: the coarse EPR4 output must correlate positively with EPR4 of the levels.
@@ -448,14 +457,16 @@ class TrackFramer {
     a.attempt = "decode";
     a.rs_capacity = fmt_.rs.parity_symbols;
 
-    std::vector<float> y(L);
+    auto& y = scratch_.y;
+    y.resize(L);
     if (fine_spec_.kind == equalize::TargetKind::generalized && !fine_eq_) design_gpr(x, lv, er);
     if (fine_eq_) {
       // LMS over the window on the training levels, then equalize with the trained taps.
       // The outputs of the last pass are kept as they were made, while the taps were still
       // adapting: they follow a timing phase or gain that drifts within the sector (after
       // a servo wedge the PLL may still be settling), which frozen taps would not.
-      std::vector<float> tmp(L + s_.equalizer_taps + 8);
+      auto& tmp = scratch_.tmp;
+      tmp.resize(L + s_.equalizer_taps + 8);
       for (int ep = 0; ep < std::max(1, s_.training_epochs); ++ep) {
         fine_eq_->restart_span();
         Progress p = fine_eq_->train(x, lv, std::span<float>(tmp.data(), L), er);
@@ -464,7 +475,7 @@ class TrackFramer {
       }
       std::copy(tmp.begin(), tmp.begin() + static_cast<long>(L), y.begin());
     } else {
-      y = x;  // unequalized (peak detection)
+      y.assign(x.begin(), x.end());  // unequalized (peak detection)
       if (!fine_det_) {
         detect::DetectorSetup ds;
         ds.params = s_.detector_params;
@@ -474,8 +485,10 @@ class TrackFramer {
     // Fine detection.
     fine_det_->reset();
     if (fine_det_->can_train()) fine_det_->train(y, tb, level_before);
-    std::vector<uint8_t> bits(fine_det_->capacity_for(L) + fine_det_->max_latency());
-    std::vector<float> llr(bits.size());
+    auto& bits = scratch_.bits;
+    auto& llr = scratch_.llr;
+    bits.resize(fine_det_->capacity_for(L) + fine_det_->max_latency());
+    llr.resize(bits.size());
     size_t nb = fine_det_->process(y, er, bits, llr);
     nb += fine_det_->flush(std::span<uint8_t>(bits.data() + nb, bits.size() - nb),
                            std::span<float>(llr.data() + nb, llr.size() - nb));
@@ -760,6 +773,10 @@ class TrackFramer {
   std::vector<Deferred> deferred_;
   std::vector<SectorAttempt> results_;
   const SectorSink* sink_ = nullptr;
+  struct WindowScratch {
+    std::vector<float> x, cy, y, tmp, llr;
+    std::vector<uint8_t> cb, er, tb, bits;
+  } scratch_;
 
   void emit(SectorAttempt&& a) {
     if (sink_ && *sink_) {
@@ -843,6 +860,7 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   constexpr size_t flag_ring_size = 1 << 16;  // a power of two: index & (size - 1)
   std::vector<uint8_t> flag_ring(flag_ring_size, 0);
   uint64_t resampled_count = 0;
+  int64_t last_flagged = -2;  // newest resampled index with a flag set
 
   auto run_pll = [&](std::span<const float> in) {
     size_t off = 0;
@@ -855,10 +873,13 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
         const double pos = bits[i].position;
         auto idx = pos >= 0 ? static_cast<int64_t>(pos + 0.5) : static_cast<int64_t>(std::llround(pos));
         uint8_t f = 0;
-        for (int64_t j = idx - 1; j <= idx + 1; ++j)
-          if (j >= 0 && static_cast<uint64_t>(j) < resampled_count &&
-              resampled_count - static_cast<uint64_t>(j) < flag_ring.size())
-            f |= flag_ring[static_cast<size_t>(j) & (flag_ring_size - 1)];
+        // Flags are rare: nothing to look up when none was set at or after idx - 1.
+        if (idx - 1 <= last_flagged) {
+          for (int64_t j = idx - 1; j <= idx + 1; ++j)
+            if (j >= 0 && static_cast<uint64_t>(j) < resampled_count &&
+                resampled_count - static_cast<uint64_t>(j) < flag_ring.size())
+              f |= flag_ring[static_cast<size_t>(j) & (flag_ring_size - 1)];
+        }
         bflags[i] = f;
         bits[i].position = rs.input_position(0) + bits[i].position * rs.ratio();  // capture samples
       }
@@ -878,7 +899,10 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
         p = rs.process(in.subspan(off), fl.subspan(off), resampled, rflags);
         off += p.consumed;
       }
-      for (size_t i = 0; i < p.produced; ++i) flag_ring[(resampled_count + i) & (flag_ring_size - 1)] = rflags[i];
+      for (size_t i = 0; i < p.produced; ++i) {
+        flag_ring[(resampled_count + i) & (flag_ring_size - 1)] = rflags[i];
+        if (rflags[i]) last_flagged = static_cast<int64_t>(resampled_count + i);
+      }
       resampled_count += p.produced;
       run_pll(std::span<const float>(resampled.data(), p.produced));
       if (flushing && p.produced == 0) break;
