@@ -78,7 +78,9 @@ std::vector<int8_t> levels_from_nrzi(std::span<const uint8_t> bits, int8_t start
   std::vector<int8_t> x(bits.size());
   int8_t level = start;
   for (size_t i = 0; i < bits.size(); ++i) {
-    if (bits[i]) level = static_cast<int8_t>(-level);
+    // Branch-free: NRZI bits are random, so a branch would mispredict every other bit.
+    const int8_t flip = static_cast<int8_t>(-(bits[i] & 1));  // 0 or -1
+    level = static_cast<int8_t>((level ^ flip) - flip);       // negated when flip is -1
     x[i] = level;
   }
   return x;
