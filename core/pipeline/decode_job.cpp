@@ -144,26 +144,32 @@ JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detec
   return out;
 }
 
-nlohmann::json hash_inputs(const Job& job, const format::TrackFormat& fmt) {
-  nlohmann::json in = nlohmann::json::array();
-  auto add = [&](const fs::path& p, const char* role) {
-    in.push_back({{"path", fs::absolute(p).lexically_normal().string()},
-                  {"role", role},
-                  {"sha256", sha256_file_hex(p)},
-                  {"bytes", fs::file_size(p)}});
-  };
-  for (const auto& m : job.manifests) add(m, "manifest");
-  if (!fmt.source.empty() && fs::exists(fmt.source)) add(fmt.source, "format");
+nlohmann::json hash_inputs(const Job& job, const format::TrackFormat& fmt, unsigned threads) {
+  // The list first, in a fixed order; then the hashes, one file per worker at a time
+  // (reading and hashing gigabytes is the decode's longest serial step otherwise).
+  std::vector<std::pair<fs::path, const char*>> files;
+  for (const auto& m : job.manifests) files.emplace_back(m, "manifest");
+  if (!fmt.source.empty() && fs::exists(fmt.source)) files.emplace_back(fmt.source, "format");
   for (const auto& c : job.captures) {
-    add(c.path, "capture");
+    files.emplace_back(c.path, "capture");
     fs::path side = c.path;
     side += ".json";
-    if (fs::exists(side)) add(side, "sidecar");
+    if (fs::exists(side)) files.emplace_back(side, "sidecar");
     if (c.path.extension() == ".sigmf-data") {
       fs::path meta = c.path;
       meta.replace_extension(".sigmf-meta");
-      if (fs::exists(meta)) add(meta, "sidecar");
+      if (fs::exists(meta)) files.emplace_back(meta, "sidecar");
     }
+  }
+  std::vector<std::string> sha(files.size());
+  parallel_for(files.size(), threads, [&](size_t i) { sha[i] = sha256_file_hex(files[i].first); });
+  nlohmann::json in = nlohmann::json::array();
+  for (size_t i = 0; i < files.size(); ++i) {
+    const auto& [p, role] = files[i];
+    in.push_back({{"path", fs::absolute(p).lexically_normal().string()},
+                  {"role", role},
+                  {"sha256", sha[i]},
+                  {"bytes", fs::file_size(p)}});
   }
   return in;
 }

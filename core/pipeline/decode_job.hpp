@@ -45,7 +45,7 @@ std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackF
                                             const JobRunOptions& options, std::vector<results::SectorAttempt>& out);
 
 // The inputs of a job with their SHA-256 (captures, sidecars, manifests, descriptor).
-nlohmann::json hash_inputs(const Job& job, const format::TrackFormat& fmt);
+nlohmann::json hash_inputs(const Job& job, const format::TrackFormat& fmt, unsigned threads = 0);
 
 // Geometry of the image a format describes.
 results::Geometry geometry_of(const format::TrackFormat& fmt);

@@ -199,7 +199,7 @@ int run_decode(const std::vector<std::string>& args) {
     for (const auto* d : host.detectors())
       plugins.push_back({{"name", d->name}, {"version", d->version}, {"path", d->path.string()}});
     run["plugins"] = plugins;
-    run["inputs"] = pipeline::hash_inputs(job, fmt);
+    run["inputs"] = pipeline::hash_inputs(job, fmt, threads);
     nlohmann::json caps = nlohmann::json::array();
     for (const auto& c : rr.captures) caps.push_back(c.to_json());
     run["captures"] = caps;
