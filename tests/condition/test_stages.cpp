@@ -349,12 +349,12 @@ TEST(ThermalAsperity, RunningMedianEqualsBruteForce) {
 }
 
 // The filter's fast paths (count test, running sums, the steady loop with its state in
-// locals) against a direct transcription of the algorithm in its header: the exact
+// locals) against a slow reference implementation of the algorithm in its header: the exact
 // median and mean of every centred window, recomputed from scratch. Two pops of different
 // heights, so that spans open, are suppressed and close. Flags and output samples must be
 // identical (the level tracker's sums may differ in rounding only, which does not move a
 // decision on this input).
-TEST(ThermalAsperity, EqualsDirectTranscription) {
+TEST(ThermalAsperity, EqualsSlowReferenceImplementation) {
   const auto clean = readback(12000, 12);
   const auto ta1 = asperity(clean.size(), 3000 * static_cast<size_t>(spb), 4.0, 1.0, 300.0);
   const auto ta2 = asperity(clean.size(), 8000 * static_cast<size_t>(spb), -6.0, 2.0, 500.0);
