@@ -4,6 +4,7 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <cstdio>
 #include <functional>
 #include <limits>
 #include <random>
@@ -38,8 +39,10 @@ std::vector<double> random_gpr(std::mt19937_64& rng) {
 // Exhaustive maximum-likelihood search: every level sequence x_(-m)..x_(N-1) (m = the
 // trellis memory, levels before the block unknown), metric sum over non-erased k of
 // (y_k - sum_i f_i x_(k-i))^2, branch-and-bound pruning (exact: partial sums only grow).
+// `metric` replaces the squared error (see fixed_point_metric).
+using BranchMetric = std::function<double(int k, double out)>;
 Bits exhaustive_ml(const std::vector<float>& y, const std::vector<double>& f, int m,
-                   const std::vector<uint8_t>& erased) {
+                   const std::vector<uint8_t>& erased, const BranchMetric& metric = {}) {
   const int N = static_cast<int>(y.size());
   std::vector<double> x(N + m), best_x;
   double best = std::numeric_limits<double>::infinity();
@@ -57,7 +60,7 @@ Bits exhaustive_ml(const std::vector<float>& y, const std::vector<double>& f, in
       if (k >= 0 && !(erased.size() && erased[k])) {
         double out = 0.0;
         for (size_t i = 0; i < f.size(); ++i) out += f[i] * x[p - i];
-        cost += (y[k] - out) * (y[k] - out);
+        cost += metric ? metric(k, out) : (y[k] - out) * (y[k] - out);
       }
       dfs(p + 1, cost);
     }
@@ -71,7 +74,8 @@ Bits exhaustive_ml(const std::vector<float>& y, const std::vector<double>& f, in
 // The metric of the best level sequence whose NRZI bits are `a` (the global sign and the
 // levels x_(-m)..x_(-2), which NRZI bits do not fix, minimised over).
 double metric_of_nrzi(const std::vector<float>& y, const std::vector<double>& f, int m,
-                      const std::vector<uint8_t>& erased, const Bits& a) {
+                      const std::vector<uint8_t>& erased, const Bits& a,
+                      const BranchMetric& branch_metric = {}) {
   const int N = static_cast<int>(y.size());
   double best = std::numeric_limits<double>::infinity();
   std::vector<double> x(N + m);
@@ -83,11 +87,27 @@ double metric_of_nrzi(const std::vector<float>& y, const std::vector<double>& f,
       if (erased.size() && erased[k]) continue;
       double out = 0.0;
       for (size_t i = 0; i < f.size(); ++i) out += f[i] * x[k + m - i];
-      metric += (y[k] - out) * (y[k] - out);
+      metric += branch_metric ? branch_metric(k, out) : (y[k] - out) * (y[k] - out);
     }
     best = std::min(best, metric);
   }
   return best;
+}
+
+// The fixed-point metric as trellis/kernels.hpp documents it, computed here from the
+// target alone: gain = 85 / (largest |output|) = 85 / sum |f_i|, y_q = nearest(clamp(
+// y * gain, -170, 170)), o_q = nearest(out * gain), metric = (y_q - o_q)^2 >> 4.
+BranchMetric fixed_point_metric(const std::vector<float>& y, const std::vector<double>& f) {
+  double largest = 0.0;
+  for (double v : f) largest += std::abs(v);
+  const auto gain = static_cast<float>(85.0 / largest);
+  std::vector<int> yq(y.size());
+  for (size_t k = 0; k < y.size(); ++k)
+    yq[k] = static_cast<int>(std::nearbyint(std::min(std::max(y[k] * gain, -170.0f), 170.0f)));
+  return [yq, gain](int k, double out) {
+    const int e = yq[k] - static_cast<int>(std::nearbyint(out * double{gain}));
+    return static_cast<double>((e * e) >> 4);
+  };
 }
 
 // Brute-force max-log LLR of every NRZI bit: best metric over all sequences with a_k = 1
@@ -246,7 +266,13 @@ void expect_viterbi_is_ml(const std::vector<double>& f, int N, int trials, doubl
   c.traceback_depth = 8;  // window 16: blocks of 16 bits exercise the block traceback too
   c.reliability = false;
   c.noise_sigma = sigma;
+  c.fixed_point = false;
   SequenceDetector det(f, c);
+  // The fixed-point detector (Euclidean metric only) on the same blocks.
+  SequenceDetectorConfig cq = c;
+  cq.fixed_point = true;
+  const bool with_fixed = c.kind == MetricKind::euclidean;
+  SequenceDetector fixed(f, cq);
   const int m = det.trellis().memory();
   int differs_from_truth = 0;
   for (int t = 0; t < trials; ++t) {
@@ -279,6 +305,26 @@ void expect_viterbi_is_ml(const std::vector<double>& f, int N, int trials, doubl
     EXPECT_NEAR(metric_of_nrzi(y, f, m, er, d.bits), m_ml, 1e-6 * (1.0 + m_ml)) << "trial " << t;
     if (!with_erasures) {
       EXPECT_EQ(d.bits, ml) << "trial " << t;
+    }
+    if (with_fixed) {
+      // Exactly optimal in its own quantized metric (integers: compared exactly; ties are
+      // common there, so the bits may differ from the exhaustive search's choice).
+      fixed.reset();
+      const Decided q = run_detector(fixed, y, er);
+      ASSERT_EQ(q.bits.size(), static_cast<size_t>(N));
+      const BranchMetric qm = fixed_point_metric(y, f);
+      const Bits qml = exhaustive_ml(y, f, m, er, qm);
+      EXPECT_EQ(metric_of_nrzi(y, f, m, er, q.bits, qm), metric_of_nrzi(y, f, m, er, qml, qm))
+          << "trial " << t;
+      // And near-optimal in the float metric: per step the quantized metric times its unit
+      // (16 / gain^2) is within 2 |e| / gain + 17 / gain^2 of e^2 (rounding of y and of
+      // the output, and the floor of >> 4), for both paths.
+      double largest = 0.0;
+      for (double v : f) largest += std::abs(v);
+      const double g = 85.0 / largest;
+      double tol = 0.0;
+      for (int k = 0; k < N; ++k) tol += 2.0 * (2.0 * (std::abs(y[k]) + largest) / g + 17.0 / (g * g));
+      EXPECT_LE(metric_of_nrzi(y, f, m, er, q.bits), m_ml + tol) << "trial " << t;
     }
     // Skip bit 0, whose previous level the block cannot see when erased.
     for (int k = 1; k < N; ++k)
@@ -369,6 +415,7 @@ TEST(TrellisSova, ReliabilityIsAtLeastMaxLog) {
     c.traceback_depth = 16;
     c.reliability_window = 16;
     c.noise_sigma = sigma;
+    c.fixed_point = false;  // the bound holds for exact metrics
     SequenceDetector det(f, c);
     for (int t = 0; t < 30; ++t) {
       const int N = 11;
@@ -397,6 +444,7 @@ TEST(TrellisMaxLogMap, HardDecisionsEqualViterbiOnLongStreams) {
   SequenceDetectorConfig vc;
   vc.traceback_depth = 96;
   vc.reliability = false;
+  vc.fixed_point = false;  // both in float: they differ only at exact near-ties
   SequenceDetector vit(kEPR4, vc);
   MaxLogMapConfig mc;
   mc.block_length = 200;
@@ -423,6 +471,34 @@ TEST(TrellisMaxLogMap, HardDecisionsEqualViterbiOnLongStreams) {
 // max-log LLR -sign(L_k L_(k-1)) min(|L_k|, |L_(k-1)|) (the max-log "box-plus" of the two
 // level LLRs, Hagenauer, Offer & Papke, IEEE Trans. IT 42(2), 1996 [from memory]); the
 // first bit, whose previous level is unknown, has LLR 0.
+// The fixed-point add-compare-select costs no measurable detection performance: on the
+// same noisy streams it makes about as many bit errors as the float detector (the two
+// differ only where quantization turns a near-tie). The 10 % + 10 margin is ours.
+TEST(TrellisFixedPoint, BitErrorsMatchFloatOnLongStreams) {
+  std::mt19937_64 rng(31);
+  struct Case {
+    std::vector<double> f;
+    double sigma;
+  };
+  for (const Case& cs : {Case{kPR4, 0.5}, Case{kEPR4, 0.62}, Case{kE2PR4, 1.0}}) {
+    const size_t n = 60000;
+    const auto a = random_bits(n, rng);
+    const auto y = add_noise(pr_channel(levels_from_nrzi(a), cs.f), cs.sigma, rng);
+    SequenceDetectorConfig c;
+    c.reliability = false;
+    c.fixed_point = false;
+    SequenceDetector flt(cs.f, c);
+    c.fixed_point = true;
+    SequenceDetector fix(cs.f, c);
+    const size_t ef = count_errors(a, run_detector(flt, y, {}, 777).bits, 16, 0).errors;
+    const size_t eq = count_errors(a, run_detector(fix, y, {}, 777).bits, 16, 0).errors;
+    std::printf("  target of %zu taps: float %zu, fixed point %zu bit errors in %zu\n", cs.f.size(), ef, eq, n);
+    EXPECT_GT(ef, 100u) << "the channel must be noisy enough to count errors";
+    EXPECT_LE(static_cast<double>(eq), 1.1 * static_cast<double>(ef) + 10.0)
+        << "float " << ef << " fixed " << eq;
+  }
+}
+
 TEST(TrellisMaxLogMap, MemorylessTargetGivesTwoYOverSigmaSquared) {
   std::mt19937_64 rng(9);
   const double sigma = 0.8;

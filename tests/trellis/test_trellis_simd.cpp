@@ -11,6 +11,7 @@
 
 #include <cmath>
 #include <cstring>
+#include <utility>
 #include <functional>
 #include <random>
 
@@ -132,6 +133,104 @@ TEST(TrellisSimd, ViterbiKernelEqualsScalarOnRandomInput) {
     }
   }
   });
+}
+
+// The fixed-point kernel: quantization, path metrics, traceback words and per-lane deltas
+// bit-identical to the scalar reference for every state count, random starting metrics,
+// random span positions (layout and renormalisation phases), samples beyond the clamp,
+// erasures; the SIMD side runs each block in two calls cut at a random step.
+TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
+  for_each_target([&] {
+  std::mt19937_64 rng(404);
+  for (const auto& f : kTargets) {
+    const Trellis tr(f);
+    const int S = tr.states(), m = tr.memory();
+    const FixedAcsTables t = make_fixed_acs(m, tr.output_row(0), tr.output_row(1));
+    double largest = 0.0;
+    for (double v : f) largest += std::abs(v);
+    for (int trial = 0; trial < 8; ++trial) {
+      const size_t n = 1 + rng() % 900;
+      // Up to 2.5 times the largest output: some samples hit the clamp.
+      const RandomBlock in = random_block(n, largest * (0.3 + 0.3 * (trial % 4)), rng);
+      std::vector<int16_t> qa(n), qb(n, 99);
+      quantize_samples_scalar(t, in.y.data(), n, qa.data());
+      quantize_samples_simd(t, in.y.data(), n, qb.data());
+      EXPECT_TRUE(same_bytes(qa, qb)) << S << " states, trial " << trial;
+      std::vector<uint16_t> pm_a(S), pm_b;
+      for (auto& v : pm_a) v = static_cast<uint16_t>(rng() % 20000);
+      pm_b = pm_a;
+      const size_t step0 = rng() % 1000;
+      const bool with_delta = trial % 2 == 0;
+      const uint8_t* er = trial == 7 ? nullptr : in.erased.data();
+      std::vector<uint64_t> dec_a(n, 7), dec_b(n, 9);
+      std::vector<uint16_t> dl_a(with_delta ? n * S : 0, 1), dl_b(dl_a.size(), 2);
+      viterbi_fixed_scalar(t, pm_a.data(), step0, qa.data(), er, n, dec_a.data(),
+                           with_delta ? dl_a.data() : nullptr);
+      const size_t cut = rng() % (n + 1);
+      for (const auto& [from, len] : {std::pair<size_t, size_t>{0, cut}, {cut, n - cut}})
+        viterbi_fixed_simd(t, pm_b.data(), step0 + from, qa.data() + from,
+                           er ? er + from : nullptr, len, dec_b.data() + from,
+                           with_delta ? dl_b.data() + from * S : nullptr);
+      EXPECT_TRUE(same_bytes(pm_a, pm_b)) << S << " states, trial " << trial;
+      EXPECT_TRUE(same_bytes(dec_a, dec_b)) << S << " states, trial " << trial;
+      EXPECT_TRUE(same_bytes(dl_a, dl_b)) << S << " states, trial " << trial;
+      uint64_t any = 0, all = ~uint64_t{0};
+      for (uint64_t d : dec_a) {
+        any |= d;
+        all &= d;
+      }
+      if (n > 50) {
+        EXPECT_NE(any, 0u);
+        EXPECT_NE(all, ~uint64_t{0});
+      }
+    }
+  }
+  });
+}
+
+// The traceback of bit tests and adds with carry follows the same survivor as the plain
+// state-by-state loop on state-ordered decisions (the reference), for every memory, from
+// a plain array and from a ring.
+TEST(TrellisTraceback, TraceLevelsFollowsTheSurvivor) {
+  std::mt19937_64 rng(505);
+  for (int m = 1; m <= 5; ++m) {
+    const int S = 1 << m;
+    const TraceWordTable table(m);
+    for (int trial = 0; trial < 20; ++trial) {
+      const size_t n = rng() % 600;
+      std::vector<uint32_t> dec(n);
+      std::vector<uint64_t> words(n);
+      for (size_t t = 0; t < n; ++t) {
+        dec[t] = static_cast<uint32_t>(rng()) & (S == 32 ? ~0u : (1u << S) - 1u);
+        words[t] = table(dec[t]);
+        ASSERT_EQ(state_ordered_decisions(words[t], m), dec[t]);
+      }
+      const int start = static_cast<int>(rng() % S);
+      // Reference: x_(t-m) is the branch taken into the state after step t.
+      std::vector<int> level(n + m);  // level[i] = x_(i - m), 1 = +1
+      int s = start;
+      for (int i = 0; i < m; ++i) level[n + i] = (s >> (m - 1 - i)) & 1;  // x_(n-m+i)
+      for (size_t t = n; t-- > 0;) {
+        const int j = (dec[t] >> s) & 1;
+        level[t] = j;
+        s = (s >> 1) | (j << (m - 1));
+      }
+      std::vector<uint64_t> bits((n + m + 63) / 64 + 1, 0xdeadbeefdeadbeefull);
+      trace_levels(words.data(), n, m, start, bits.data());
+      for (size_t i = 0; i < n + m; ++i)
+        ASSERT_EQ(static_cast<int>((bits[i / 64] >> (i % 64)) & 1), level[i])
+            << "memory " << m << " trial " << trial << " bit " << i << " of " << n + m;
+      // The same words in a ring of 700 starting at a random slot (wrapping or not).
+      const size_t ring_size = 700, head = rng() % ring_size;
+      std::vector<uint64_t> ring(ring_size, ~uint64_t{0});
+      for (size_t t = 0; t < n; ++t) ring[(head + t) % ring_size] = words[t];
+      std::vector<uint64_t> bits_ring(bits.size(), 0x0123456789abcdefull);
+      trace_levels_ring(ring.data(), ring_size, head, n, m, start, bits_ring.data());
+      for (size_t i = 0; i < n + m; ++i)
+        ASSERT_EQ(static_cast<int>((bits_ring[i / 64] >> (i % 64)) & 1), level[i])
+            << "ring: memory " << m << " trial " << trial << " head " << head << " bit " << i;
+    }
+  }
 }
 
 // The noise-predictive / pattern-dependent kernel with random per-branch tables (bias,

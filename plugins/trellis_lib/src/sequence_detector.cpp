@@ -1,7 +1,9 @@
 #include "trellis/sequence_detector.hpp"
 
 #include <algorithm>
+#include <array>
 #include <bit>
+#include <cstring>
 #include <cmath>
 #include <limits>
 #include <sstream>
@@ -56,16 +58,32 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
       config_(config),
       S_(trellis_.states()),
       N_(order_for(config)),
-      window_(2 * static_cast<size_t>(config.traceback_depth)),
+      window_(kWindow),
+      release_(kWindow - static_cast<size_t>(config.traceback_depth)),
       d2min_(min_squared_distance(target)),
       np_estimator_(config.kind == MetricKind::noise_predictive ? N_ : 0),
       pd_estimator_(config.kind == MetricKind::pattern_dependent ? N_ : 0,
                     config.kind == MetricKind::pattern_dependent ? config.pattern_bits : 1) {
   const size_t S = static_cast<size_t>(S_);
   histf_.assign(static_cast<size_t>(N_) * S, 0.0f);
-  decisions_.assign(window_, 0);
-  delta_.assign(config_.reliability ? window_ * S : 0, 0.0f);
+  euclidean_ = config_.kind == MetricKind::euclidean;
+  fixed_ = euclidean_ && config_.fixed_point;
+  trace_table_ = TraceWordTable(trellis_.memory());
+  decisions_.assign(fixed_ ? 0 : window_, 0);
+  trace_dec_.assign(window_, 0);
+  delta_.assign(config_.reliability && !fixed_ ? window_ * S : 0, 0.0f);
   y_.assign(window_, 0.0f);
+  if (fixed_) {
+    fixed_tables_ = make_fixed_acs(trellis_.memory(), trellis_.output_row(0), trellis_.output_row(1));
+    pmq_.assign(S, 0);
+    yq_.assign(window_, 0);
+    deltaq_.assign(config_.reliability ? window_ * S : 0, 0);
+    const int m = trellis_.memory();
+    fixed_lane_.resize(static_cast<size_t>(m) * S);
+    for (int p = 0; p < m; ++p)
+      for (int st = 0; st < S_; ++st)
+        fixed_lane_[p * S + st] = static_cast<uint8_t>(fixed_lane_of(st, p, m));
+  }
   erased_.assign(window_, 0);
   // Padded both sides: the SIMD SOVA kernel reads whole vectors around the window.
   const size_t padded = kPathPad + window_ + kSovaPad;
@@ -76,7 +94,8 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
   path_dec_.assign(padded, 0);
   path_delta_.assign(padded, 0.0f);
   path_slot_.assign(window_, 0);
-  euclidean_ = config_.kind == MetricKind::euclidean;
+  // trace_levels' words plus room for the 8-byte reads of fill_path().
+  path_levels_.assign(window_ / 64 + 3, 0);
   pmf_.assign(S, 0.0f);
   out0f_.resize(S);
   out1f_.resize(S);
@@ -185,8 +204,27 @@ void SequenceDetector::steps_float(size_t slot, size_t n) {
         t, pmf_.data(), histf_.data(), phase, &y_[slot], &erased_[slot], n, &decisions_[slot],
         delta);
   }
+  for (size_t k = 0; k < n; ++k) trace_dec_[slot + k] = trace_table_(decisions_[slot + k]);
   span_steps_ += n;
   count_ += n;
+}
+
+void SequenceDetector::steps_fixed(size_t slot, size_t n) {
+  (config_.simd ? quantize_samples_simd : quantize_samples_scalar)(fixed_tables_, &y_[slot], n,
+                                                                   &yq_[slot]);
+  uint16_t* delta = config_.reliability ? &deltaq_[slot * S_] : nullptr;
+  // Without an erased sample in the run the kernel skips the per-step test.
+  const uint8_t* erased = &erased_[slot];
+  if (std::memchr(erased, 1, n) == nullptr) erased = nullptr;
+  (config_.simd ? viterbi_fixed_simd : viterbi_fixed_scalar)(
+      fixed_tables_, pmq_.data(), span_steps_, &yq_[slot], erased, n, &trace_dec_[slot], delta);
+  span_steps_ += n;
+  count_ += n;
+}
+
+int SequenceDetector::best_state() const {
+  if (fixed_) return static_cast<int>(std::min_element(pmq_.begin(), pmq_.end()) - pmq_.begin());
+  return static_cast<int>(std::min_element(pmf_.begin(), pmf_.end()) - pmf_.begin());
 }
 
 // Float per-branch tables of the installed noise model (or of the plain Euclidean metric
@@ -230,32 +268,82 @@ double SequenceDetector::llr_scale() const {
 }
 
 // Follows the best survivor back through the `n` steps of the window.
-void SequenceDetector::trace_back(size_t n) {
-  int s = static_cast<int>(std::min_element(pmf_.begin(), pmf_.end()) - pmf_.begin());
+// Byte i of kSpreadBits[v] is bit i of v.
+constexpr auto kSpreadBits = [] {
+  std::array<uint64_t, 256> t{};
+  for (int v = 0; v < 256; ++v)
+    for (int i = 0; i < 8; ++i) t[v] |= static_cast<uint64_t>((v >> i) & 1) << (8 * i);
+  return t;
+}();
+
+void SequenceDetector::trace_back(size_t n, size_t emit, size_t path_steps) {
   const int m = trellis_.memory();
-  // Local pointers: byte stores may alias anything, so members would be reloaded.
-  uint32_t* dec = path_dec_.data() + kPathPad;
-  uint16_t* slots = path_slot_.data();
-  uint8_t* states = path_state_.data() + kPathPad;
-  uint8_t* branches = path_branch_.data() + kPathPad;
+  trace_levels_ring(trace_dec_.data(), window_, head_, n, m, best_state(), path_levels_.data());
+  const uint8_t* level_bytes = reinterpret_cast<const uint8_t*>(path_levels_.data());
   uint8_t* nrzi = path_bit_.data() + kPathPad;
-  const uint32_t* ring = decisions_.data();
+  // NRZI bits of the released steps, eight at a time: a_t = x_t xor x_(t-1), the level
+  // bits t + m and t + m - 1 (the bit array and path_bit_ are padded for the overrun).
+  for (size_t t = 0; t < emit; t += 8) {
+    const size_t at = t + static_cast<size_t>(m) - 1;
+    uint64_t x;
+    std::memcpy(&x, level_bytes + (at >> 3), sizeof x);
+    x >>= at & 7;
+    const uint64_t spread = kSpreadBits[(x ^ (x >> 1)) & 0xff];
+    std::memcpy(nrzi + t, &spread, sizeof spread);
+  }
+  if (path_steps == 0) return;
+  uint16_t* slots = path_slot_.data();
   // The window is a ring: steps [0, first) sit at slots head_.., the rest from slot 0.
   const size_t first = std::min(n, window_ - head_);
-  std::copy_n(ring + head_, first, dec);
-  std::copy_n(ring, n - first, dec + first);
   for (size_t t = 0; t < first; ++t) slots[t] = static_cast<uint16_t>(head_ + t);
   for (size_t t = first; t < n; ++t) slots[t] = static_cast<uint16_t>(t - first);
-  // Serial: about 3.5 cycles per step; tracing from all states at once in SIMD lanes
-  // while this runs was measured slower.
-  for (size_t t = n; t-- > 0;) {
-    const unsigned j = (dec[t] >> s) & 1u;
-    states[t] = static_cast<uint8_t>(s);
-    branches[t] = static_cast<uint8_t>(j);
-    // Off the serial chain: NRZI bit = x_t xor x_(t-1), bits 0 and 1 of the branch word.
-    const unsigned word = static_cast<unsigned>(s) | (j << m);
-    nrzi[t] = static_cast<uint8_t>((word ^ (word >> 1)) & 1u);
-    s = (s >> 1) | static_cast<int>(j << (m - 1));
+  // Survivor state, branch and NRZI bit of each step from the level bits: after step t
+  // the levels at bits t .. t + m are x_(t-m) .. x_t (branch, then the state reversed).
+  const int S = S_;
+  uint16_t code[2 * kMaxStates];  // (m + 1)-bit window -> state | branch << 8 | nrzi << 9
+  for (int v = 0; v < 2 * S; ++v) {
+    int state = 0;
+    for (int i = 0; i < m; ++i) state |= ((v >> (1 + i)) & 1) << (m - 1 - i);
+    const int nrzi = ((v >> m) ^ (v >> (m - 1))) & 1;
+    code[v] = static_cast<uint16_t>(state | (v & 1) << 8 | nrzi << 9);
+  }
+  // Local pointers: byte stores may alias anything, so members would be reloaded.
+  uint8_t* states = path_state_.data() + kPathPad;
+  uint8_t* branches = path_branch_.data() + kPathPad;
+  const uint64_t window_mask = (uint64_t{2} << m) - 1;
+  for (size_t t = 0; t < path_steps; ++t) {
+    uint64_t x;
+    std::memcpy(&x, level_bytes + (t >> 3), sizeof x);
+    const uint16_t c = code[(x >> (t & 7)) & window_mask];
+    states[t] = static_cast<uint8_t>(c);
+    branches[t] = static_cast<uint8_t>((c >> 8) & 1);
+    nrzi[t] = static_cast<uint8_t>(c >> 9);
+  }
+  if (config_.reliability) {  // the SOVA kernel reads state-ordered decisions
+    uint32_t* dec = path_dec_.data() + kPathPad;
+    if (fixed_) {
+      // Bit reversal of the state index is its own inverse: the same table goes back.
+      const uint64_t* table = trace_table_.table.data();
+      const uint64_t* words = trace_dec_.data();
+      auto convert = [&]<int kBytes>() {
+        const uint64_t smask = S >= 32 ? 0xffffffffu : (uint64_t{1} << S) - 1;
+        for (size_t t = 0; t < n; ++t) {
+          const uint64_t w = words[slots[t]] & smask;
+          uint64_t r = table[w & 0xff];
+          for (int b = 1; b < kBytes; ++b) r |= table[b * 256 + ((w >> (8 * b)) & 0xff)];
+          dec[t] = static_cast<uint32_t>(r & smask);
+        }
+      };
+      if (S <= 8)
+        convert.template operator()<1>();
+      else if (S == 16)
+        convert.template operator()<2>();
+      else
+        convert.template operator()<4>();
+    } else {
+      std::copy_n(decisions_.data() + head_, first, dec);
+      std::copy_n(decisions_.data(), n - first, dec + first);
+    }
   }
 }
 
@@ -275,10 +363,25 @@ void SequenceDetector::sova(size_t n, size_t emit, double scale) {
   const uint8_t* states = path_state_.data() + kPathPad;
   const uint16_t* slots = path_slot_.data();
   float* delta = path_delta_.data() + kPathPad;
-  for (size_t t = 0; t < last; ++t) {
-    const float d = delta_[slots[t] * S + states[t]];
-    const float choice[2] = {d, inf};  // indexed, not branched: about half are skipped
-    delta[t] = choice[static_cast<double>(d) * scale >= kLlrCap];
+  if (fixed_) {
+    // Fixed-point deltas are stored per lane; the lane layout turns with the span step
+    // (the lane of state s after a step of phase p is fixed_lane_[p * S + s]).
+    const size_t m = static_cast<size_t>(trellis_.memory());
+    size_t phase = (span_steps_ - count_) % m;
+    const float unit = fixed_tables_.metric_unit;
+    const uint8_t* lane_of = fixed_lane_.data();
+    for (size_t t = 0; t < last; ++t) {
+      const float d = static_cast<float>(deltaq_[slots[t] * S + lane_of[phase * S + states[t]]]) * unit;
+      const float choice[2] = {d, inf};
+      delta[t] = choice[static_cast<double>(d) * scale >= kLlrCap];
+      phase = phase + 1 == m ? 0 : phase + 1;
+    }
+  } else {
+    for (size_t t = 0; t < last; ++t) {
+      const float d = delta_[slots[t] * S + states[t]];
+      const float choice[2] = {d, inf};  // indexed, not branched: about half are skipped
+      delta[t] = choice[static_cast<double>(d) * scale >= kLlrCap];
+    }
   }
   const SovaPath path{trellis_.memory(), path_dec_.data() + kPathPad, states,
                       path_branch_.data() + kPathPad, path_bit_.data() + kPathPad, delta};
@@ -287,7 +390,13 @@ void SequenceDetector::sova(size_t n, size_t emit, double scale) {
 
 void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<float> llr) {
   const size_t n = count_;
-  trace_back(n);
+  // Survivor states and branches are needed by SOVA (up to the last merge it follows), by
+  // the noise models and by the sigma estimate (the released steps); bits always.
+  const size_t sova_last = std::min(n, emit + static_cast<size_t>(config_.reliability_window) - 1);
+  const size_t path_steps = config_.reliability ? sova_last
+                            : (!euclidean_ || config_.noise_sigma <= 0.0) ? emit
+                                                                           : 0;
+  trace_back(n, emit, path_steps);
   // Estimates from the released part of the decided path.
   const bool adapting = config_.adapt && !trained_ && config_.kind != MetricKind::euclidean;
   // Local accumulators (same order of additions) keep the sums out of memory.
@@ -369,9 +478,11 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
   float* __restrict out_llr = llr.data();
   if (config_.reliability) {
     const float* __restrict rel = path_rel_.data() + kPathPad;
+    // In float, so that the loop vectorises (a double min compiles to a branch, and
+    // whether a reliability reaches the cap is random).
+    const auto scale_f = static_cast<float>(scale);
     for (size_t t = 0; t < emit; ++t) {
-      const double v = rel[t] * scale;
-      const float mag = static_cast<float>(v < kLlrCap ? v : double{kLlrCap});
+      const float mag = std::min(rel[t] * scale_f, kLlrCap);
       out_llr[t] = std::bit_cast<float>(std::bit_cast<uint32_t>(mag) |
                                         (static_cast<uint32_t>(decided[t] ^ 1u) << 31));
     }
@@ -394,15 +505,20 @@ Progress SequenceDetector::process(std::span<const float> samples,
                                ") differ in length");
   if (bits.size() != llr.size())
     throw_usage("process", "bit and llr buffers differ in length");
-  for (size_t k = 0; k < samples.size(); ++k)
-    if (!std::isfinite(samples[k]) && (erasure.empty() || !erasure[k]))
-      throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
-  const size_t D = static_cast<size_t>(config_.traceback_depth);
+  // A vectorisable pass over the exponent bits first; the exact check only if it fails.
+  uint32_t non_finite = 0;
+  for (const float v : samples)
+    non_finite |= (std::bit_cast<uint32_t>(v) & 0x7f800000u) == 0x7f800000u;
+  if (non_finite)
+    for (size_t k = 0; k < samples.size(); ++k)
+      if (!std::isfinite(samples[k]) && (erasure.empty() || !erasure[k]))
+        throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
+  const size_t R = release_;
   Progress p;
   {
     // Runs of steps up to the next release (or the end of the ring), in one kernel call.
     while (p.consumed < samples.size()) {
-      const bool room = bits.size() - p.produced >= D;
+      const bool room = bits.size() - p.produced >= R;
       const size_t slot = (head_ + count_) % window_;
       size_t n = std::min({samples.size() - p.consumed, window_ - count_, window_ - slot});
       if (!room) n = std::min(n, window_ - 1 - count_);  // stop short of a release
@@ -419,11 +535,14 @@ Progress SequenceDetector::process(std::span<const float> samples,
           ring_erased[i] = erased ? 1 : 0;
         }
       }
-      steps_float(slot, n);
+      if (fixed_)
+        steps_fixed(slot, n);
+      else
+        steps_float(slot, n);
       p.consumed += n;
       if (count_ == window_) {
-        release(D, bits.subspan(p.produced, D), llr.subspan(p.produced, D));
-        p.produced += D;
+        release(R, bits.subspan(p.produced, R), llr.subspan(p.produced, R));
+        p.produced += R;
       }
     }
   }
@@ -442,6 +561,7 @@ size_t SequenceDetector::flush(std::span<uint8_t> bits, std::span<float> llr) {
 
 void SequenceDetector::clear_span() {
   std::fill(pmf_.begin(), pmf_.end(), 0.0f);
+  std::fill(pmq_.begin(), pmq_.end(), uint16_t{0});
   span_steps_ = 0;
   std::fill(histf_.begin(), histf_.end(), 0.0f);
   std::fill(decided_noise_.begin(), decided_noise_.end(), 0.0);

@@ -3,6 +3,8 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <stdexcept>
+#include <string>
 
 #include "trellis/kernels.hpp"
 
@@ -177,6 +179,216 @@ void sova_scalar(const SovaPath& p, size_t last, size_t window, float* rel) {
       c = (c >> 1) | (jj << (m - 1));
     }
   }
+}
+
+}  // namespace salvor::trellis
+
+// ---- fixed-point Euclidean add-compare-select and the traceback -----------------------
+
+namespace salvor::trellis {
+
+namespace {
+
+int reverse_bits(int v, int bits) {
+  int r = 0;
+  for (int i = 0; i < bits; ++i) r |= ((v >> i) & 1) << (bits - 1 - i);
+  return r;
+}
+
+int rotate_left(int v, int by, int bits) {
+  by %= bits;
+  const int mask = (1 << bits) - 1;
+  return ((v << by) | (v >> (bits - by))) & mask;
+}
+
+// The S-bit word repeated to fill 64 bits (S = 2..32).
+uint64_t repeated(uint64_t word, int states) {
+  uint64_t w = 0;
+  for (int i = 0; i < 64; i += states) w |= word << i;
+  return w;
+}
+
+}  // namespace
+
+FixedAcsTables make_fixed_acs(int memory, const double* out0, const double* out1) {
+  if (memory < 1 || memory > 5)
+    throw std::invalid_argument("make_fixed_acs: memory " + std::to_string(memory) +
+                                " is outside 1..5");
+  FixedAcsTables t;
+  const int S = 1 << memory, m = memory;
+  t.states = S;
+  t.memory = m;
+  double largest = 0.0;
+  for (int s = 0; s < S; ++s) largest = std::max({largest, std::fabs(out0[s]), std::fabs(out1[s])});
+  if (!(largest > 0.0) || !std::isfinite(largest))
+    throw std::invalid_argument("make_fixed_acs: branch outputs are all zero or not finite");
+  t.gain = static_cast<float>(kFixedOutputRange / largest);
+  t.metric_unit = static_cast<float>((1 << kFixedMetricShift) / (double{t.gain} * t.gain));
+  for (int j = 0; j < 2; ++j) {
+    t.out[j].resize(S);
+    const double* o = j ? out1 : out0;
+    for (int s = 0; s < S; ++s)
+      t.out[j][s] = static_cast<int16_t>(std::nearbyint(o[s] * double{t.gain}) * kFixedScale);
+  }
+  t.lane_state.resize(static_cast<size_t>(m) * S);
+  t.own_out.resize(static_cast<size_t>(m) * S);
+  t.partner_out.resize(static_cast<size_t>(m) * S);
+  t.mask_bytes = (S + 7) / 8;
+  t.trace_word.assign(static_cast<size_t>(m) * t.mask_bytes * 256, 0);
+  for (int p = 0; p < m; ++p) {
+    for (int l = 0; l < S; ++l) {
+      // Before a step of phase p, lane l holds state rotl(l, p); after it, rotl(l, p + 1).
+      const int own = rotate_left(l, p, m), ns = rotate_left(l, p + 1, m);
+      const int j_own = ns & 1;  // the own predecessor's oldest level
+      if ((own >> (m - 1)) != j_own || (own & (S / 2 - 1)) != (ns >> 1) ||
+          fixed_lane_of(ns, p, m) != l)
+        throw std::logic_error("make_fixed_acs: lane layout is inconsistent");
+      t.lane_state[p * S + l] = static_cast<uint8_t>(ns);
+      t.own_out[p * S + l] = t.out[j_own][ns];
+      t.partner_out[p * S + l] = t.out[1 - j_own][ns];
+    }
+    for (int b = 0; b < t.mask_bytes; ++b)
+      for (int v = 0; v < 256; ++v) {
+        uint64_t word = 0;
+        for (int i = 0; i < 8 && 8 * b + i < S; ++i) {
+          const int ns = t.lane_state[p * S + 8 * b + i];
+          // Partner chosen (bit set) means branch 1 - (ns & 1); otherwise branch ns & 1.
+          const int take1 = ((v >> i) & 1) ^ (ns & 1);
+          word |= static_cast<uint64_t>(take1) << reverse_bits(ns, m);
+        }
+        t.trace_word[(static_cast<size_t>(p) * t.mask_bytes + b) * 256 + v] = repeated(word, S);
+      }
+  }
+  return t;
+}
+
+void quantize_samples_scalar(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq) {
+  const float lim = kFixedSampleLimit;
+  for (size_t i = 0; i < n; ++i) {
+    const float v = std::min(std::max(y[i] * t.gain, -lim), lim);
+    yq[i] = static_cast<int16_t>(static_cast<int>(std::nearbyint(v)) * kFixedScale);
+  }
+}
+
+void viterbi_fixed_scalar(const FixedAcsTables& t, uint16_t* pm, size_t step0,
+                          const int16_t* yq, const uint8_t* erased, size_t n,
+                          uint64_t* decisions, uint16_t* delta) {
+  const int S = t.states, half = S / 2, m = t.memory;
+  uint16_t next[32];
+  int rev[32];
+  for (int s = 0; s < S; ++s) rev[s] = reverse_bits(s, m);
+  // Both held times 64, so (64 e_q)^2 >> 16 = e_q^2 >> 4.
+  auto metric = [](int e) { return static_cast<uint32_t>(e * e) >> 16; };
+  auto sat = [](uint32_t v) { return static_cast<uint16_t>(std::min<uint32_t>(v, 0xffff)); };
+  for (size_t k = 0; k < n; ++k) {
+    const bool er = erased != nullptr && erased[k] != 0;
+    const int phase = static_cast<int>((step0 + k) % static_cast<size_t>(m));
+    uint64_t bits = 0;
+    for (int s = 0; s < S; ++s) {
+      uint16_t c0 = pm[s >> 1], c1 = pm[(s >> 1) + half];
+      if (!er) {
+        c0 = sat(c0 + metric(yq[k] - t.out[0][s]));
+        c1 = sat(c1 + metric(yq[k] - t.out[1][s]));
+      }
+      const bool take1 = c1 < c0 || (c1 == c0 && (s & 1) == 0);
+      next[s] = std::min(c0, c1);
+      bits |= static_cast<uint64_t>(take1) << rev[s];
+      if (delta)
+        delta[k * S + fixed_lane_of(s, phase, m)] = static_cast<uint16_t>(c0 > c1 ? c0 - c1 : c1 - c0);
+    }
+    if ((step0 + k + 1) % kRenormInterval == 0) {
+      uint16_t low = next[0];
+      for (int s = 1; s < S; ++s) low = std::min(low, next[s]);
+      for (int s = 0; s < S; ++s) pm[s] = static_cast<uint16_t>(next[s] - low);
+    } else {
+      for (int s = 0; s < S; ++s) pm[s] = next[s];
+    }
+    decisions[k] = repeated(bits, S);
+  }
+}
+
+namespace {
+
+// One traceback step: r <- 2 r + (bit r mod 64 of d). The decision words repeat every S
+// bits, so bit (r mod 64) is the decision of the state whose bit-reverse is r mod S.
+inline uint64_t trace_step(uint64_t r, uint64_t d) {
+#if defined(__x86_64__) && defined(__GNUC__)
+  asm("btq %[r], %[d]\n\tadcq %[r], %[r]" : [r] "+r"(r) : [d] "r"(d) : "cc");
+  return r;
+#else
+  return (r << 1) | ((d >> (r & 63)) & 1u);
+#endif
+}
+
+}  // namespace
+
+namespace {
+
+// Steps t = begin + count - 1 .. begin, the word of step t at dec[t - begin]; stores r
+// into levels[t / 64] whenever t is a multiple of 64.
+void trace_range(const uint64_t* dec, size_t begin, size_t count, uint64_t& r,
+                 uint64_t* levels) {
+  size_t i = count;  // steps left; the next is begin + i - 1
+  while (i > 0 && (begin + i) % 64 != 0) {
+    r = trace_step(r, dec[--i]);
+    if ((begin + i) % 64 == 0) levels[(begin + i) / 64] = r;
+  }
+  while (i >= 64) {
+    i -= 64;
+    const uint64_t* d = dec + i;
+    for (int k = 63; k >= 0; --k) r = trace_step(r, d[k]);
+    levels[(begin + i) / 64] = r;
+  }
+  while (i > 0) {
+    r = trace_step(r, dec[--i]);
+    if ((begin + i) % 64 == 0) levels[(begin + i) / 64] = r;
+  }
+}
+
+}  // namespace
+
+void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size_t n,
+                       int memory, int state, uint64_t* levels) {
+  const size_t words = (n + static_cast<size_t>(memory) + 63) / 64;
+  const size_t stored = n ? (n - 1) / 64 + 1 : 0;  // words the loop writes
+  for (size_t w = stored; w < words; ++w) levels[w] = 0;
+  uint64_t r = static_cast<uint64_t>(reverse_bits(state, memory));
+  // Steps [0, first) sit at ring[head ..], the rest at ring[0 ..].
+  const size_t first = std::min(n, ring_size - head);
+  if (n > first) trace_range(ring, first, n - first, r, levels);
+  trace_range(ring + head, 0, first, r, levels);
+  // The final state's levels, bits n .. n + memory - 1 (already there unless they spill
+  // into a word the loop did not write).
+  const int fin = reverse_bits(state, memory);
+  for (int b = 0; b < memory; ++b) {
+    const size_t i = n + static_cast<size_t>(b);
+    const uint64_t bit = uint64_t{1} << (i % 64);
+    levels[i / 64] = ((fin >> b) & 1) ? (levels[i / 64] | bit) : (levels[i / 64] & ~bit);
+  }
+}
+
+void trace_levels(const uint64_t* decisions, size_t n, int memory, int state, uint64_t* levels) {
+  trace_levels_ring(decisions, n, 0, n, memory, state, levels);
+}
+
+TraceWordTable::TraceWordTable(int memory_) : memory(memory_) {
+  const int S = 1 << memory, bytes = (S + 7) / 8;
+  table.assign(static_cast<size_t>(bytes) * 256, 0);
+  for (int b = 0; b < bytes; ++b)
+    for (int v = 0; v < 256; ++v) {
+      uint64_t word = 0;
+      for (int i = 0; i < 8 && 8 * b + i < S; ++i)
+        word |= static_cast<uint64_t>((v >> i) & 1) << reverse_bits(8 * b + i, memory);
+      table[b * 256 + v] = repeated(word, S);
+    }
+}
+
+uint32_t state_ordered_decisions(uint64_t trace_word, int memory) {
+  const int S = 1 << memory;
+  uint32_t bits = 0;
+  for (int s = 0; s < S; ++s)
+    bits |= static_cast<uint32_t>((trace_word >> reverse_bits(s, memory)) & 1u) << s;
+  return bits;
 }
 
 }  // namespace salvor::trellis

@@ -9,6 +9,7 @@
 #include <hwy/highway.h>
 
 #include <cstring>
+#include <utility>
 #include <limits>
 
 #include "trellis/kernels.hpp"
@@ -122,6 +123,212 @@ void ViterbiEuclidean(const EuclideanAcs& t, float* pm, size_t phase, const floa
     case 16: return ViterbiEuclideanS<16>(t, pm, phase, y, erased, n, decisions, delta);
     default: return ViterbiEuclideanS<32>(t, pm, phase, y, erased, n, decisions, delta);
   }
+#endif
+}
+
+#if HWY_TARGET != HWY_SCALAR  // one lane: the scalar reference is the kernel
+// ---- fixed-point Euclidean ACS (in-place butterflies, see kernels.hpp) -----------------
+
+// Swaps lanes at distance DIST (16-bit lanes): within a 128-bit block through a byte
+// shuffle (one instruction), across the two blocks of a 256-bit vector by swapping them.
+template <size_t DIST, class D>
+HWY_INLINE hn::Vec<D> swap_lanes(D d, hn::Vec<D> v) {
+  if constexpr (DIST >= 8) {
+    return hn::SwapAdjacentBlocks(v);
+  } else {
+    const hn::Repartition<uint8_t, D> d8;
+    alignas(64) static constexpr uint8_t kIdx[64] = {
+#define SALVOR_SWAP_BYTE(i) static_cast<uint8_t>(((((i) % 16) / 2) ^ DIST) * 2 + ((i) & 1))
+#define SALVOR_SWAP_ROW(i)                                                                  \
+  SALVOR_SWAP_BYTE(i), SALVOR_SWAP_BYTE(i + 1), SALVOR_SWAP_BYTE(i + 2), SALVOR_SWAP_BYTE(i + 3), \
+      SALVOR_SWAP_BYTE(i + 4), SALVOR_SWAP_BYTE(i + 5), SALVOR_SWAP_BYTE(i + 6),             \
+      SALVOR_SWAP_BYTE(i + 7)
+        SALVOR_SWAP_ROW(0),  SALVOR_SWAP_ROW(8),  SALVOR_SWAP_ROW(16), SALVOR_SWAP_ROW(24),
+        SALVOR_SWAP_ROW(32), SALVOR_SWAP_ROW(40), SALVOR_SWAP_ROW(48), SALVOR_SWAP_ROW(56)};
+#undef SALVOR_SWAP_ROW
+#undef SALVOR_SWAP_BYTE
+    return hn::BitCast(d, hn::TableLookupBytes(hn::BitCast(d8, v), hn::Load(d8, kIdx)));
+  }
+}
+
+template <int S>
+struct FixedKernel {
+  static constexpr int M = S == 2 ? 1 : S == 4 ? 2 : S == 8 ? 3 : S == 16 ? 4 : 5;
+  static constexpr int kBytes = (S + 7) / 8;
+  using D = hn::CappedTag<uint16_t, (S < 16 ? S : 16)>;
+  using DI = hn::RebindToSigned<D>;
+  using V = hn::Vec<D>;
+  static constexpr size_t N = hn::MaxLanes(D());
+  static constexpr size_t C = S / N;
+  // Steps of one unrolled period: the layout repeats every M steps, renormalisation every
+  // kRenormInterval (8); within a period both are known at compile time.
+  static constexpr size_t L = M == 3 ? 24 : M == 5 ? 40 : 8;
+  // The path metrics live in a plain local array of vectors that the steps take by
+  // reference: as a member they would be reloaded after every store (vector types may
+  // alias anything).
+  struct Metrics {
+    V v[C];
+  };
+  // The tables as plain pointers, read once: members of the tables' vectors would be
+  // reloaded after every vector store (which may alias anything).
+  struct Tables {
+    const int16_t* own;
+    const int16_t* partner;
+    const uint64_t* trace_word;
+  };
+
+  // One step of layout phase P on sample yq (erased: no branch metric), then the
+  // renormalisation if due; returns the step's traceback word.
+  template <int P, bool kDelta>
+  static HWY_INLINE uint64_t step(const Tables& t, Metrics& pm, int16_t yq, bool erased,
+                                  bool renorm, uint16_t* delta) {
+    constexpr size_t DIST = size_t{1} << (M - 1 - P);
+    const D d;
+    const DI di;
+    const auto yv = hn::Set(di, yq);
+    V next[C];
+    uint32_t bits = 0;
+    for (size_t c = 0; c < C; ++c) {
+      V partner;
+      if constexpr (DIST >= N) {
+        partner = pm.v[c ^ (DIST / N)];
+      } else {
+        partner = swap_lanes<DIST>(d, pm.v[c]);
+      }
+      V own = pm.v[c];
+      if (!erased) {
+        // Samples and outputs are held times 64: the high half of e * e is e_q^2 >> 4.
+        const auto eo = hn::Sub(yv, hn::LoadU(di, t.own + P * S + c * N));
+        const auto ep = hn::Sub(yv, hn::LoadU(di, t.partner + P * S + c * N));
+        own = hn::SaturatedAdd(own, hn::BitCast(d, hn::MulHigh(eo, eo)));
+        partner = hn::SaturatedAdd(partner, hn::BitCast(d, hn::MulHigh(ep, ep)));
+      }
+      next[c] = hn::Min(own, partner);
+      bits |= mask_bits(d, hn::Eq(next[c], partner)) << (c * N);
+      if constexpr (kDelta) hn::StoreU(hn::Sub(hn::Max(own, partner), next[c]), d, delta + c * N);
+    }
+    if (renorm) {
+      V low = next[0];
+      for (size_t c = 1; c < C; ++c) low = hn::Min(low, next[c]);
+      if constexpr (N == 16) {  // through the 128-bit minimum-position instruction
+        const hn::Half<D> dh;
+        const auto half = hn::Min(hn::LowerHalf(dh, low), hn::UpperHalf(dh, low));
+        low = hn::Set(d, hn::GetLane(hn::MinOfLanes(dh, half)));
+      } else {
+        low = hn::MinOfLanes(d, low);
+      }
+      for (size_t c = 0; c < C; ++c) next[c] = hn::Sub(next[c], low);
+    }
+    for (size_t c = 0; c < C; ++c) pm.v[c] = next[c];
+    const uint64_t* lut = t.trace_word + static_cast<size_t>(P) * kBytes * 256;
+    uint64_t w = lut[bits & 0xff];
+    for (int b = 1; b < kBytes; ++b) w |= lut[b * 256 + ((bits >> (8 * b)) & 0xff)];
+    return w;
+  }
+
+  // L steps starting at a span step that is a multiple of L.
+  template <bool kDelta, bool kErased, size_t... Q>
+  static HWY_INLINE void period(const Tables& t, Metrics& pm, const int16_t* yq,
+                                const uint8_t* erased, uint64_t* decisions, uint16_t* delta,
+                                std::index_sequence<Q...>) {
+    ((decisions[Q] = step<static_cast<int>(Q % M), kDelta>(
+          t, pm, yq[Q], kErased && erased[Q] != 0, (Q + 1) % kRenormInterval == 0,
+          kDelta ? delta + Q * S : nullptr)),
+     ...);
+  }
+
+  template <bool kDelta, bool kErased, size_t... P>
+  static HWY_INLINE void single(const Tables& t, Metrics& pm, int phase, size_t step_index,
+                                const int16_t* yq, const uint8_t* erased, uint64_t* decisions,
+                                uint16_t* delta, std::index_sequence<P...>) {
+    ((phase == static_cast<int>(P)
+          ? void(*decisions = step<static_cast<int>(P), kDelta>(
+                t, pm, *yq, kErased && *erased != 0, (step_index + 1) % kRenormInterval == 0,
+                delta))
+          : void()),
+     ...);
+  }
+
+  template <bool kDelta, bool kErased>
+  static void steps(const Tables& tables, Metrics& metrics, size_t step0, const int16_t* yq,
+                    const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
+    // Local copies whose address never escapes stay in registers across the stores.
+    const Tables t = tables;
+    Metrics pm = metrics;
+    constexpr auto phases = std::make_index_sequence<M>();
+    auto at = [&](size_t k) { return kErased ? erased + k : nullptr; };
+    auto delta_at = [&](size_t k) { return kDelta ? delta + k * S : nullptr; };
+    size_t k = 0;
+    for (; k < n && (step0 + k) % L != 0; ++k)
+      single<kDelta, kErased>(t, pm, static_cast<int>((step0 + k) % M), step0 + k, yq + k, at(k),
+                              decisions + k, delta_at(k), phases);
+    for (; k + L <= n; k += L)
+      period<kDelta, kErased>(t, pm, yq + k, at(k), decisions + k, delta_at(k),
+                              std::make_index_sequence<L>());
+    for (; k < n; ++k)
+      single<kDelta, kErased>(t, pm, static_cast<int>((step0 + k) % M), step0 + k, yq + k, at(k),
+                              decisions + k, delta_at(k), phases);
+    metrics = pm;
+  }
+
+  static void run(const FixedAcsTables& tables, uint16_t* pm_io, size_t step0, const int16_t* yq,
+                  const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
+    const D d;
+    const Tables t{tables.own_out.data(), tables.partner_out.data(), tables.trace_word.data()};
+    const int p0 = static_cast<int>(step0 % M);
+    // Into lane order: before a step of phase p0 the layout is the one after phase p0 - 1.
+    alignas(64) uint16_t lanes[S];
+    const uint8_t* before = tables.lane_state.data() + ((p0 + M - 1) % M) * S;
+    for (int l = 0; l < S; ++l) lanes[l] = pm_io[before[l]];
+    Metrics pm;
+    for (size_t c = 0; c < C; ++c) pm.v[c] = hn::Load(d, lanes + c * N);
+    if (delta)
+      erased ? steps<true, true>(t, pm, step0, yq, erased, n, decisions, delta)
+             : steps<true, false>(t, pm, step0, yq, erased, n, decisions, delta);
+    else
+      erased ? steps<false, true>(t, pm, step0, yq, erased, n, decisions, delta)
+             : steps<false, false>(t, pm, step0, yq, erased, n, decisions, delta);
+    for (size_t c = 0; c < C; ++c) hn::Store(pm.v[c], d, lanes + c * N);
+    const uint8_t* after = tables.lane_state.data() + ((step0 + n + M - 1) % M) * S;
+    for (int l = 0; l < S; ++l) pm_io[after[l]] = lanes[l];
+  }
+};
+
+#endif  // HWY_TARGET != HWY_SCALAR
+
+void ViterbiFixed(const FixedAcsTables& t, uint16_t* pm, size_t step0, const int16_t* yq,
+                  const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
+#if HWY_TARGET == HWY_SCALAR
+  return viterbi_fixed_scalar(t, pm, step0, yq, erased, n, decisions, delta);
+#else
+  switch (t.states) {
+    case 2: return FixedKernel<2>::run(t, pm, step0, yq, erased, n, decisions, delta);
+    case 4: return FixedKernel<4>::run(t, pm, step0, yq, erased, n, decisions, delta);
+    case 8: return FixedKernel<8>::run(t, pm, step0, yq, erased, n, decisions, delta);
+    case 16: return FixedKernel<16>::run(t, pm, step0, yq, erased, n, decisions, delta);
+    default: return FixedKernel<32>::run(t, pm, step0, yq, erased, n, decisions, delta);
+  }
+#endif
+}
+
+void QuantizeSamples(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq) {
+#if HWY_TARGET == HWY_SCALAR
+  return quantize_samples_scalar(t, y, n, yq);
+#else
+  const hn::ScalableTag<float> df;
+  const hn::Rebind<int32_t, decltype(df)> di;
+  const hn::Rebind<int16_t, decltype(df)> d16;
+  const size_t L = hn::Lanes(df);
+  const auto gain = hn::Set(df, t.gain);
+  const auto hi = hn::Set(df, static_cast<float>(kFixedSampleLimit));
+  const auto lo = hn::Neg(hi);
+  size_t i = 0;
+  for (; i + L <= n; i += L) {
+    const auto v = hn::Min(hn::Max(hn::Mul(hn::LoadU(df, y + i), gain), lo), hi);
+    hn::StoreU(hn::DemoteTo(d16, hn::ShiftLeft<kFixedScaleShift>(hn::NearestInt(v))), d16, yq + i);
+  }
+  if (i < n) quantize_samples_scalar(t, y + i, n - i, yq + i);
+  (void)di;
 #endif
 }
 
@@ -464,6 +671,8 @@ HWY_EXPORT(MaxLogBackward);
 HWY_EXPORT(TargetName);
 HWY_EXPORT(Sova);
 HWY_EXPORT(ViterbiPredictive);
+HWY_EXPORT(ViterbiFixed);
+HWY_EXPORT(QuantizeSamples);
 
 void viterbi_predictive_simd(const PredictiveAcs& t, float* pm, float* hist, size_t phase,
                              const float* y, const uint8_t* erased, size_t n,
@@ -490,6 +699,15 @@ void maxlog_backward_simd(const MaxLogTables& t, const float* alpha_in, const fl
                           float* beta, float* raw, uint16_t* best_branch) {
   HWY_DYNAMIC_DISPATCH(MaxLogBackward)(t, alpha_in, alpha, y, erased, n, n_llr, beta, raw,
                                        best_branch);
+}
+
+void viterbi_fixed_simd(const FixedAcsTables& t, uint16_t* pm, size_t step0, const int16_t* yq,
+                        const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
+  HWY_DYNAMIC_DISPATCH(ViterbiFixed)(t, pm, step0, yq, erased, n, decisions, delta);
+}
+
+void quantize_samples_simd(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq) {
+  HWY_DYNAMIC_DISPATCH(QuantizeSamples)(t, y, n, yq);
 }
 
 const char* simd_target_name() { return HWY_DYNAMIC_DISPATCH(TargetName)(); }

@@ -10,6 +10,7 @@
 
 #include <cstddef>
 #include <cstdint>
+#include <vector>
 
 namespace salvor::trellis {
 
@@ -36,6 +37,104 @@ void viterbi_euclidean_scalar(const EuclideanAcs& t, float* pm, size_t phase, co
                               float* delta);
 void viterbi_euclidean_simd(const EuclideanAcs& t, float* pm, size_t phase, const float* y,
                             const uint8_t* erased, size_t n, uint32_t* decisions, float* delta);
+
+// ---- Fixed-point Euclidean add-compare-select -------------------------------------
+// The default Viterbi path. Samples are quantized once, y_q = nearest(clamp(y * gain,
+// -limit, limit)) with gain = 85 / (largest |branch output|) and limit = 170, outputs the
+// same way (|o_q| <= 85), so |y_q - o_q| <= 255 and the branch metric
+//   bm = (y_q - o_q)^2 >> 4            (0 .. 4064; 0 for an erased step)
+// needs no clamp. Quantized samples and outputs are stored times 64 (kFixedScale): then
+// bm is the high half of the 16-bit product of their difference with itself, one
+// instruction. Path metrics are uint16 with saturating adds, the minimum subtracted
+// after every kRenormInterval-th step: the spread of the metrics never exceeds
+// memory * 4064 (every state is reachable from the best one in `memory` steps), so before
+// a renormalisation they stay below (5 + 8) * 4064 < 65535 and never saturate.
+// One quantum of a metric is 16 / gain^2 in the float metric's units.
+//
+// Ties: the branch whose oldest level differs from the newest level of the new state s
+// wins (branch 1 - (s & 1)); a rule that the SIMD layout below gets for free.
+//
+// SIMD layout ("in-place butterflies"): lane l holds one state, and the two predecessors
+// of the pair of new states in lanes l and l ^ d are in those same lanes, with d =
+// 2^(memory - 1 - p) at layout phase p = (step index in the span) mod memory. The lanes'
+// states rotate with the phase (fixed_lane_state); per-state outputs such as delta are
+// stored in lane order, so read them through fixed_lane_of().
+//
+// Decisions are written for the traceback (trace_levels): bit r of the word is the branch
+// into the state whose bit-reverse (over `memory` bits) is r, and the S-bit word is
+// repeated to fill 64 bits.
+inline constexpr int kFixedOutputRange = 85;
+inline constexpr int kFixedSampleLimit = 170;
+inline constexpr int kFixedMetricShift = 4;
+inline constexpr int kFixedScaleShift = 6;
+inline constexpr int kFixedScale = 1 << kFixedScaleShift;  // (64 e)^2 >> 16 = e^2 >> 4
+
+struct FixedAcsTables {
+  int states = 0, memory = 0;
+  float gain = 0.0f;                 // y_q = nearest(clamp(y * gain, -170, 170))
+  float metric_unit = 0.0f;          // one metric quantum in float metric units (16 / gain^2)
+  std::vector<int16_t> out[2];       // quantized outputs of branch j into state s, times 64
+  // Per phase p (memory rows of S): the state in lane l after a step of phase p, and the
+  // outputs of the branch from the lane's own predecessor and from its partner's.
+  std::vector<uint8_t> lane_state;
+  std::vector<int16_t> own_out, partner_out;
+  // Per phase p and byte b of the lane-ordered "partner chosen" mask: that byte's part
+  // of the traceback word (branch bits in bit-reversed state order, repeated to 64 bits).
+  std::vector<uint64_t> trace_word;  // [(p * bytes + b) * 256 + value]
+  int mask_bytes = 0;
+};
+FixedAcsTables make_fixed_acs(int memory, const double* out0, const double* out1);
+
+// Lane of state s after a step of layout phase p (the inverse of lane_state).
+inline int fixed_lane_of(int state, int phase, int memory) {
+  // After phase p, lane bit (memory-1-p) holds state bit 0 and the lane bits above it in
+  // rotation hold state bits 1.. : the lane index is the state rotated right by p + 1.
+  const int r = (phase + 1) % memory, mask = (1 << memory) - 1;
+  return ((state >> r) | (state << (memory - r))) & mask;
+}
+
+// 64 y_q for n samples (erased samples give 0; the caller skips their metrics anyway).
+void quantize_samples_scalar(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq);
+void quantize_samples_simd(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq);
+
+// `n` steps from span step `step0` (layout phase step0 % memory, renormalisation after
+// steps with (step0 + k + 1) % kRenormInterval == 0). `pm` holds S metrics in state order
+// on entry and exit. decisions[k] as above; if `delta` is not null, delta[k * S + lane] =
+// |metric through branch 0 - metric through branch 1| of the state in that lane.
+void viterbi_fixed_scalar(const FixedAcsTables& t, uint16_t* pm, size_t step0,
+                          const int16_t* yq, const uint8_t* erased, size_t n,
+                          uint64_t* decisions, uint16_t* delta);
+void viterbi_fixed_simd(const FixedAcsTables& t, uint16_t* pm, size_t step0,
+                        const int16_t* yq, const uint8_t* erased, size_t n,
+                        uint64_t* decisions, uint16_t* delta);
+
+// ---- Traceback -----------------------------------------------------------------------
+// Follows the survivor that ends in `state` after step n-1 back to step 0, given the
+// decision words of trace_levels' format (see above) for steps 0..n-1. Writes the levels
+// of that path as bits: bit i of levels[] (word i / 64, bit i % 64) is the level
+// x_(i - memory) (1 = +1), for i = 0 .. n + memory - 1; so after step t the state is the
+// levels at bits t + 1 .. t + memory and the branch taken into it is bit t.
+// One bit test and one add with carry per step: the serial chain is two instructions.
+// `levels` needs (n + memory + 63) / 64 words.
+void trace_levels(const uint64_t* decisions, size_t n, int memory, int state, uint64_t* levels);
+// The same with the words in a ring: step t's word at ring[(head + t) % ring_size].
+void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size_t n,
+                       int memory, int state, uint64_t* levels);
+
+// State-ordered decision words (bit s = branch into state s) in trace_levels' format.
+struct TraceWordTable {
+  int memory = 0;
+  std::vector<uint64_t> table;  // [byte * 256 + value]
+  explicit TraceWordTable(int memory_ = 1);
+  uint64_t operator()(uint32_t state_bits) const {
+    uint64_t w = 0;
+    for (int b = 0; b < ((1 << memory) + 7) / 8; ++b)
+      w |= table[b * 256 + ((state_bits >> (8 * b)) & 0xff)];
+    return w;
+  }
+};
+// The other way: trace_levels' word back to bit s = branch into state s.
+uint32_t state_ordered_decisions(uint64_t trace_word, int memory);
 
 // Viterbi add-compare-select with a noise-predictive, pattern-dependent branch metric:
 // for branch j into state s from predecessor p,

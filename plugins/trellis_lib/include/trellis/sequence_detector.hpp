@@ -20,16 +20,18 @@
 // up to constants scaled by 2 s2, so LLR = Delta / (2 s2) (Delta / 2 for the
 // pattern-dependent metric, whose variances are inside it).
 //
-// Streaming: decisions are packed one bit per state in a 32-bit word per step, kept in a
-// window of 2 * traceback_depth steps. When the window is full, the best survivor is
-// traced back and the oldest traceback_depth bits are released (block traceback); so
-// at most 2 * traceback_depth - 1 bits are held back. The add-compare-select runs in
+// Streaming: decisions are packed one bit per state, kept in a window of kWindow = 512
+// steps. When the window is full, the best survivor is traced back and all but the newest
+// traceback_depth steps are released (block traceback: 512 - depth bits per traceback,
+// each of them at least depth steps behind the end of the window); so at most 511 bits
+// are held back. The traceback costs two instructions per step (trace_levels). The add-compare-select runs in
 // float through the kernels of trellis/kernels.hpp (minimum subtracted after every 8th
 // step of the span); noise models are estimated in double. A span
 // starts with every state equally likely
 // (no assumption about the levels before the first sample) and flush() traces back from
 // the best final state. Block boundaries depend only on the step count, so any chunking
-// of the input gives the same bits and LLRs.
+// of the input gives the same bits and LLRs. The Euclidean metric runs in 16-bit fixed
+// point by default (fixed_point).
 //
 // When noise_sigma is not known, s2 is estimated from the decided path: the mean square
 // of (y - yhat) (euclidean) or of the prediction error (noise-predictive, untrained),
@@ -41,6 +43,7 @@
 #include <vector>
 
 #include "common/stream.hpp"
+#include "trellis/kernels.hpp"
 #include "trellis/noise_model.hpp"
 #include "trellis/trellis.hpp"
 
@@ -50,7 +53,7 @@ enum class MetricKind { euclidean, noise_predictive, pattern_dependent };
 
 struct SequenceDetectorConfig {
   MetricKind kind = MetricKind::euclidean;
-  int traceback_depth = 64;     // bits; 8..256. Also the number of bits released per traceback
+  int traceback_depth = 64;     // bits; 8..256: the newest steps a traceback does not release
   bool reliability = true;      // compute SOVA reliabilities (else |LLR| = a fixed estimate)
   int reliability_window = 32;  // steps back from a merge that it may update; 1..traceback_depth
   double noise_sigma = 0.0;     // rms noise at the input; <= 0: estimate (see above)
@@ -61,12 +64,17 @@ struct SequenceDetectorConfig {
   // Run the add-compare-select and the SOVA update with the run-time dispatched SIMD
   // kernels (true) or their scalar references (false). Both give the same bits and LLRs.
   bool simd = true;
+  // Euclidean metric only: the add-compare-select in 16-bit fixed point (see
+  // trellis/kernels.hpp: samples quantized to 1/85 of the largest noiseless output),
+  // about twice as fast as float. false: float, the reference it is tested against.
+  bool fixed_point = true;
 };
 
 class SequenceDetector {
  public:
   static constexpr float kLlrCap = 60.0f;  // |LLR| saturation (no competitor seen)
   static constexpr int kMaxTraceback = 256;
+  static constexpr size_t kWindow = 2 * kMaxTraceback;  // steps per traceback
 
   SequenceDetector(std::span<const double> target, const SequenceDetectorConfig& config);
 
@@ -84,7 +92,7 @@ class SequenceDetector {
   // Clears the span and everything estimated from decisions; keeps training.
   void reset();
   size_t held_back() const { return count_; }
-  size_t max_held_back() const { return 2 * static_cast<size_t>(config_.traceback_depth) - 1; }
+  size_t max_held_back() const { return kWindow - 1; }
 
   const Trellis& trellis() const { return trellis_; }
   const SequenceDetectorConfig& config() const { return config_; }
@@ -95,8 +103,12 @@ class SequenceDetector {
  private:
   // `n` add-compare-select steps on samples already stored in the ring at `slot`.
   void steps_float(size_t slot, size_t n);
+  void steps_fixed(size_t slot, size_t n);
+  int best_state() const;
   void install_tables();
-  void trace_back(size_t n);
+  // Traces the survivor through the `n` steps of the window: the NRZI bits of the first
+  // `emit` steps, and the states, branches and bits of the first `path_steps`.
+  void trace_back(size_t n, size_t emit, size_t path_steps);
   void sova(size_t n, size_t emit, double scale);
   void release(size_t emit, std::span<uint8_t> bits, std::span<float> llr);
   void clear_span();
@@ -107,7 +119,8 @@ class SequenceDetector {
   SequenceDetectorConfig config_;
   int S_;          // states
   int N_;          // predictor order in use (0 for euclidean)
-  size_t window_;  // 2 * traceback_depth
+  size_t window_;   // kWindow
+  size_t release_;  // bits released per traceback: kWindow - traceback_depth
   double d2min_;   // for the fixed |LLR| when reliabilities are off
 
   // Noise models and their estimators.
@@ -126,18 +139,27 @@ class SequenceDetector {
   std::vector<float> metric_tables_;   // see install_tables()
   size_t span_steps_ = 0;              // steps since the span began (renormalisation phase)
   std::vector<float> out0f_, out1f_;   // branch outputs in float
+  bool fixed_ = false;                 // the fixed-point Euclidean kernel
+  FixedAcsTables fixed_tables_;
+  std::vector<uint16_t> pmq_;          // its path metrics (state order)
+  std::vector<uint8_t> fixed_lane_;    // [phase * S + s]: lane of state s (fixed_lane_of)
+  TraceWordTable trace_table_;         // state-ordered decisions <-> traceback words
 
   // Window of the last `count_` steps, a ring starting at `head_`.
-  std::vector<uint32_t> decisions_;  // bit s: branch index into state s
+  std::vector<uint32_t> decisions_;  // bit s: branch index into state s (float kernels)
+  std::vector<uint64_t> trace_dec_;  // the same in trace_levels' format (every kernel)
   std::vector<float> delta_;         // [slot * S + s]: |metric difference| at the merge
+  std::vector<uint16_t> deltaq_;     // fixed point: [slot * S + lane], in metric quanta
   std::vector<float> y_;
+  std::vector<int16_t> yq_;          // fixed point: quantized samples
   std::vector<uint8_t> erased_;
   size_t head_ = 0, count_ = 0;
 
   // Traceback scratch (sized to the window).
   std::vector<uint8_t> path_state_, path_branch_, path_bit_;
   static constexpr size_t kPathPad = kMaxTraceback;  // room before step 0 (SOVA kernel)
-  std::vector<uint32_t> path_dec_;  // decisions of the window in step order
+  std::vector<uint32_t> path_dec_;  // decisions of the window in step order (SOVA)
+  std::vector<uint64_t> path_levels_; // the survivor's levels as bits (trace_levels)
   std::vector<float> path_delta_;   // metric difference at each survivor merge
   std::vector<uint16_t> path_slot_; // ring slot of each step
   std::vector<float> path_rel_;
