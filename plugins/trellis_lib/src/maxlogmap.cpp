@@ -1,6 +1,7 @@
 #include "trellis/maxlogmap.hpp"
 
 #include <algorithm>
+#include <bit>
 #include <cmath>
 #include <limits>
 #include <sstream>
@@ -54,11 +55,12 @@ MaxLogMap::MaxLogMap(std::span<const double> target, const MaxLogMapConfig& conf
 // `total` (all states equal there), LLRs of the first `emit` steps.
 void MaxLogMap::run(size_t emit, size_t total, std::span<uint8_t> bits, std::span<float> llr) {
   const int S = S_;
-  for (size_t t = 0; t < total; ++t) {
-    const size_t slot = (head_ + t) % capacity_;
-    y_lin_[t] = y_[slot];
-    erased_lin_[t] = erased_[slot];
-  }
+  // The ring in step order: [head_, capacity_) then [0, ..).
+  const size_t first = std::min(total, capacity_ - head_);
+  std::copy_n(y_.data() + head_, first, y_lin_.data());
+  std::copy_n(y_.data(), total - first, y_lin_.data() + first);
+  std::copy_n(erased_.data() + head_, first, erased_lin_.data());
+  std::copy_n(erased_.data(), total - first, erased_lin_.data() + first);
   const MaxLogTables tab{S, out0f_.data(), out1f_.data(), nrzi0_.data(), nrzi1_.data()};
   // The best branch is only needed for the noise estimate.
   uint16_t* best = config_.noise_sigma > 0.0 ? nullptr : best_branch_.data();
@@ -87,11 +89,14 @@ void MaxLogMap::run(size_t emit, size_t total, std::span<uint8_t> bits, std::spa
   double var = config_.noise_sigma > 0.0 ? config_.noise_sigma * config_.noise_sigma
                : residual_count_ ? residual_sum_ / static_cast<double>(residual_count_)
                                  : 1.0;
-  const double scale = 0.5 / std::max(var, 1e-12);
+  // In float, so that the loop vectorises.
+  const auto scale = static_cast<float>(0.5 / std::max(var, 1e-12));
+  const float* __restrict raw = raw_.data();
+  uint8_t* __restrict out_bits = bits.data();
+  float* __restrict out_llr = llr.data();
   for (size_t t = 0; t < emit; ++t) {
-    const double v = std::clamp(raw_[t] * scale, -double(kLlrCap), double(kLlrCap));
-    bits[t] = raw_[t] > 0.0f ? 1 : 0;
-    llr[t] = static_cast<float>(v);
+    out_bits[t] = raw[t] > 0.0f ? 1 : 0;
+    out_llr[t] = std::clamp(raw[t] * scale, -kLlrCap, kLlrCap);
   }
   // Carry the forward metrics; drop the released samples.
   if (emit > 0) std::copy_n(&alpha_[(emit - 1) * S], S, alpha_start_.begin());
@@ -106,18 +111,35 @@ Progress MaxLogMap::process(std::span<const float> samples, std::span<const uint
                                ") and samples (" + std::to_string(samples.size()) +
                                ") differ in length");
   if (bits.size() != llr.size()) throw_usage("process", "bit and llr buffers differ in length");
-  for (size_t k = 0; k < samples.size(); ++k)
-    if (!std::isfinite(samples[k]) && (erasure.empty() || !erasure[k]))
-      throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
+  // A vectorisable pass over the exponent bits first; the exact check only if it fails.
+  uint32_t non_finite = 0;
+  for (const float v : samples)
+    non_finite |= (std::bit_cast<uint32_t>(v) & 0x7f800000u) == 0x7f800000u;
+  if (non_finite)
+    for (size_t k = 0; k < samples.size(); ++k)
+      if (!std::isfinite(samples[k]) && (erasure.empty() || !erasure[k]))
+        throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
   const size_t B = static_cast<size_t>(config_.block_length);
   Progress p;
-  for (; p.consumed < samples.size(); ++p.consumed) {
-    if (count_ + 1 == capacity_ && bits.size() - p.produced < B) break;
+  while (p.consumed < samples.size()) {
+    // Stop one sample short of a full buffer when there is no room for the block.
+    const bool room = bits.size() - p.produced >= B;
     const size_t slot = (head_ + count_) % capacity_;
-    const bool erased = !erasure.empty() && erasure[p.consumed] != 0;
-    y_[slot] = erased ? 0.0f : samples[p.consumed];
-    erased_[slot] = erased ? 1 : 0;
-    ++count_;
+    size_t n = std::min({samples.size() - p.consumed, capacity_ - count_, capacity_ - slot});
+    if (!room) n = std::min(n, capacity_ - 1 - count_);
+    if (n == 0) break;
+    if (erasure.empty()) {
+      std::copy_n(samples.data() + p.consumed, n, y_.data() + slot);
+      std::fill_n(erased_.data() + slot, n, uint8_t{0});
+    } else {
+      for (size_t i = 0; i < n; ++i) {
+        const bool erased = erasure[p.consumed + i] != 0;
+        y_[slot + i] = erased ? 0.0f : samples[p.consumed + i];
+        erased_[slot + i] = erased ? 1 : 0;
+      }
+    }
+    count_ += n;
+    p.consumed += n;
     if (count_ == capacity_) {
       run(B, capacity_, bits.subspan(p.produced, B), llr.subspan(p.produced, B));
       p.produced += B;

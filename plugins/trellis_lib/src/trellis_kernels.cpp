@@ -99,11 +99,7 @@ void maxlog_forward_scalar(const MaxLogTables& t, const float* alpha_in, const f
       }
       next[s] = std::max(v0, v1);
     }
-    float high = 0.0f;
-    if ((k + 1) % kRenormInterval == 0 || k + 1 == n) {
-      high = next[0];
-      for (int s = 1; s < S; ++s) high = std::max(high, next[s]);
-    }
+    const float high = ((k + 1) % kRenormInterval == 0 || k + 1 == n) ? next[0] : 0.0f;
     for (int s = 0; s < S; ++s) alpha_out[k * S + s] = next[s] - high;
   }
 }
@@ -146,11 +142,7 @@ void maxlog_backward_scalar(const MaxLogTables& t, const float* alpha_in, const 
       const int j = p >= half, s = (2 * p) % S;
       prev[p] = std::max(beta[s] - g[j][s], beta[s + 1] - g[j][s + 1]);
     }
-    float high = 0.0f;
-    if (done % kRenormInterval == 0 || k == 0) {
-      high = prev[0];
-      for (int p = 1; p < S; ++p) high = std::max(high, prev[p]);
-    }
+    const float high = (done % kRenormInterval == 0 || k == 0) ? prev[0] : 0.0f;
     for (int p = 0; p < S; ++p) beta[p] = prev[p] - high;
   }
 }

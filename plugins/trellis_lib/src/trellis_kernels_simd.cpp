@@ -455,11 +455,7 @@ void MaxLogForwardS(const MaxLogTables& t, const float* alpha_in, const float* y
       next[c] = hn::Max(v0, v1);
     }
     V high = hn::Zero(d);
-    if ((k + 1) % kRenormInterval == 0 || k + 1 == n) {
-      high = next[0];
-      for (size_t c = 1; c < C; ++c) high = hn::Max(high, next[c]);
-      high = hn::MaxOfLanes(d, high);
-    }
+    if ((k + 1) % kRenormInterval == 0 || k + 1 == n) high = hn::Set(d, hn::GetLane(next[0]));
     for (size_t c = 0; c < C; ++c) {
       a[c] = hn::Sub(next[c], high);
       hn::StoreU(a[c], d, alpha_out + k * S + c * N);
@@ -468,6 +464,26 @@ void MaxLogForwardS(const MaxLogTables& t, const float* alpha_in, const float* y
 }
 
 #if HWY_TARGET != HWY_SCALAR
+// The maxima over the lanes of a and of b, reduced together: the halves of both are
+// folded into one vector first, so the shuffle-and-max steps run once for the two.
+template <class D>
+HWY_INLINE void max_of_lanes_of_two(D d, hn::Vec<D> a, hn::Vec<D> b, float& max_a, float& max_b) {
+  constexpr size_t N = hn::MaxLanes(D());
+  if constexpr (N == 16 || N == 8) {
+    // [low half of a | low half of b] against the upper halves: a's maxima in the lower
+    // half, b's in the upper half.
+    auto m = hn::Max(hn::ConcatLowerLower(d, b, a), hn::ConcatUpperUpper(d, b, a));
+    if constexpr (N == 16) m = hn::Max(m, hn::SwapAdjacentBlocks(m));  // within 256 bits
+    m = hn::Max(m, hn::Shuffle1032(m));                                // within 128 bits
+    m = hn::Max(m, hn::Shuffle2301(m));
+    max_a = hn::GetLane(m);
+    max_b = hn::GetLane(hn::UpperHalf(hn::Half<D>(), m));
+  } else {
+    max_a = hn::GetLane(hn::MaxOfLanes(d, a));
+    max_b = hn::GetLane(hn::MaxOfLanes(d, b));
+  }
+}
+
 template <int S>
 void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* alpha,
                      const float* y, const uint8_t* erased, size_t n, size_t n_llr,
@@ -481,6 +497,10 @@ void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* 
   const V neg_inf = hn::Set(d, -std::numeric_limits<float>::infinity());
   V b[C], o0[C], o1[C], w0[C], w1[C], v0[C], v1[C];
   hn::Mask<D> one0[C], one1[C];  // branch carries NRZI bit 1
+  // With memory >= 2 the NRZI bit x_k xor x_(k-1) is the new state's own: equal for both
+  // branches into it.
+  bool same_bits = true;
+  for (int s = 0; s < S; ++s) same_bits = same_bits && t.nrzi0[s] == t.nrzi1[s];
   for (size_t c = 0; c < C; ++c) {
     b[c] = hn::LoadU(d, beta_io + c * N);
     o0[c] = hn::LoadU(d, t.out0 + c * N);
@@ -518,13 +538,19 @@ void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* 
         gather_preds<C>(ix, a, c, p0, p1);
         v0[c] = hn::Add(hn::Sub(p0, g0[c]), b[c]);
         v1[c] = hn::Add(hn::Sub(p1, g1[c]), b[c]);
-        acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v0[c], neg_inf));
-        acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v0[c]));
-        acc1 = hn::Max(acc1, hn::IfThenElse(one1[c], v1[c], neg_inf));
-        acc0 = hn::Max(acc0, hn::IfThenElse(one1[c], neg_inf, v1[c]));
+        if (same_bits) {  // both branches into a state carry its NRZI bit: one blend each
+          const V v = hn::Max(v0[c], v1[c]);
+          acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v, neg_inf));
+          acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v));
+        } else {
+          acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v0[c], neg_inf));
+          acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v0[c]));
+          acc1 = hn::Max(acc1, hn::IfThenElse(one1[c], v1[c], neg_inf));
+          acc0 = hn::Max(acc0, hn::IfThenElse(one1[c], neg_inf, v1[c]));
+        }
       }
-      const float best1 = hn::GetLane(hn::MaxOfLanes(d, acc1));
-      const float best0 = hn::GetLane(hn::MaxOfLanes(d, acc0));
+      float best1, best0;
+      max_of_lanes_of_two(d, acc1, acc0, best1, best0);
       raw[k] = best1 - best0;
       if (best_branch) {
         const V best = hn::Set(d, best1 > best0 ? best1 : best0);
@@ -559,11 +585,7 @@ void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* 
       }
     }
     V high = hn::Zero(d);
-    if (done % kRenormInterval == 0 || k == 0) {
-      high = nb[0];
-      for (size_t c = 1; c < C; ++c) high = hn::Max(high, nb[c]);
-      high = hn::MaxOfLanes(d, high);
-    }
+    if (done % kRenormInterval == 0 || k == 0) high = hn::Set(d, hn::GetLane(nb[0]));
     for (size_t c = 0; c < C; ++c) b[c] = hn::Sub(nb[c], high);
   }
   for (size_t c = 0; c < C; ++c) hn::StoreU(b[c], d, beta_io + c * N);

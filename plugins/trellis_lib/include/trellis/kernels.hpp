@@ -14,7 +14,7 @@
 
 namespace salvor::trellis {
 
-// Path metrics are renormalised (the minimum or maximum subtracted) after every
+// Path metrics are renormalised (for Viterbi the minimum subtracted) after every
 // kRenormInterval-th step only: the horizontal minimum is the longest part of a step's
 // dependency chain, and float metrics that grow for 8 steps keep ample precision.
 inline constexpr size_t kRenormInterval = 8;
@@ -163,7 +163,9 @@ void viterbi_predictive_simd(const PredictiveAcs& t, float* pm, float* hist, siz
                              uint32_t* decisions, float* delta);
 
 // Max-log-MAP recursions with gamma = -(y - out)^2 (0 when erased), renormalised after
-// steps k (of the call) with (k + 1) a multiple of kRenormInterval, and after the last.
+// steps k (of the call) with (k + 1) a multiple of kRenormInterval, and after the last:
+// state 0's metric is subtracted from all (any common offset cancels in the LLR, and a
+// broadcast is much shorter on the recursion's dependency chain than a maximum).
 //  forward:  alpha_out[k * S + s] = max(alpha_(k-1)[s>>1] + g0, alpha_(k-1)[(s>>1)+S/2] + g1),
 //            starting from `alpha_in`; n steps.
 //  backward: from `beta` (in/out, the metrics after step n-1), walks k = n-1 .. 0; for
