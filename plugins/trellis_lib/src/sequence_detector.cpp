@@ -9,6 +9,7 @@
 #include <sstream>
 
 #include "common/error.hpp"
+#include "input_check.hpp"
 #include "trellis/kernels.hpp"
 
 namespace salvor::trellis {
@@ -505,14 +506,7 @@ Progress SequenceDetector::process(std::span<const float> samples,
                                ") differ in length");
   if (bits.size() != llr.size())
     throw_usage("process", "bit and llr buffers differ in length");
-  // A vectorisable pass over the exponent bits first; the exact check only if it fails.
-  uint32_t non_finite = 0;
-  for (const float v : samples)
-    non_finite |= (std::bit_cast<uint32_t>(v) & 0x7f800000u) == 0x7f800000u;
-  if (non_finite)
-    for (size_t k = 0; k < samples.size(); ++k)
-      if (!std::isfinite(samples[k]) && (erasure.empty() || !erasure[k]))
-        throw_input("detector input", "sample " + std::to_string(k) + " of the block is not a finite number");
+  refuse_unflagged_non_finite(samples, erasure);
   const size_t R = release_;
   Progress p;
   {
