@@ -116,6 +116,7 @@ void BM_Pll(benchmark::State& st) {
     salvor::timing::TimingLoopConfig tc;
     tc.samples_per_bit = 2.0;
     tc.pw50_bits = 2.3;
+    tc.midpoints = false;  // as the decoder runs it
     salvor::timing::TimingLoop pll(tc);
     size_t off = 0;
     while (off < x.size()) {
