@@ -7,7 +7,11 @@
 #include <map>
 #include <set>
 #include <numeric>
+#include <condition_variable>
+#include <exception>
 #include <filesystem>
+#include <mutex>
+#include <thread>
 #include <cstdio>
 #include <cstdlib>
 
@@ -27,6 +31,55 @@
 namespace salvor::pipeline {
 
 namespace {
+
+// A bounded queue of bit-sample blocks between the front-end thread and the framer.
+// Locked once per block (tens of thousands of bits), never per bit.
+class BitBlockQueue {
+ public:
+  struct Block {
+    std::vector<timing::BitSample> bits;
+    std::vector<uint8_t> flags;
+  };
+  explicit BitBlockQueue(size_t capacity) : capacity_(capacity) {}
+
+  // Blocks while the queue is full; returns at once after cancel().
+  void push(std::span<const timing::BitSample> bits, std::span<const uint8_t> flags) {
+    Block b{{bits.begin(), bits.end()}, {flags.begin(), flags.end()}};
+    std::unique_lock<std::mutex> lock(mu_);
+    space_.wait(lock, [&] { return blocks_.size() < capacity_ || cancelled_; });
+    if (cancelled_) throw_internal("capture decode: the framer stopped");
+    blocks_.push_back(std::move(b));
+    ready_.notify_one();
+  }
+  // The next block; false once the producer closed the queue and it is empty.
+  bool pop(Block& out) {
+    std::unique_lock<std::mutex> lock(mu_);
+    ready_.wait(lock, [&] { return !blocks_.empty() || closed_; });
+    if (blocks_.empty()) return false;
+    out = std::move(blocks_.front());
+    blocks_.pop_front();
+    space_.notify_one();
+    return true;
+  }
+  void close() {
+    std::lock_guard<std::mutex> lock(mu_);
+    closed_ = true;
+    ready_.notify_all();
+  }
+  void cancel() {
+    std::lock_guard<std::mutex> lock(mu_);
+    cancelled_ = true;
+    space_.notify_all();
+  }
+
+ private:
+  std::mutex mu_;
+  std::condition_variable ready_, space_;
+  std::deque<Block> blocks_;
+  size_t capacity_;
+  bool closed_ = false, cancelled_ = false;
+};
+
 
 using results::SectorAttempt;
 using results::SectorStatus;
@@ -864,6 +917,18 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   uint64_t resampled_count = 0;
   int64_t last_flagged = -2;  // newest resampled index with a flag set
 
+  // The bit samples go to the framer directly, or, with a front-end thread, through a
+  // bounded queue to the framer on this thread (the same blocks in the same order).
+  BitBlockQueue queue(4);
+  const bool threaded = front_end_thread_;
+  auto emit = [&](std::span<const timing::BitSample> b, std::span<const uint8_t> f) {
+    if (b.empty()) return;
+    if (threaded)
+      queue.push(b, f);
+    else
+      framer.push(b, f);
+  };
+
   auto run_pll = [&](std::span<const float> in) {
     size_t off = 0;
     while (off < in.size()) {
@@ -885,8 +950,8 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
         bflags[i] = f;
         bits[i].position = rs.input_position(0) + bits[i].position * rs.ratio();  // capture samples
       }
-      framer.push(std::span<const timing::BitSample>(bits.data(), p.produced),
-                  std::span<const uint8_t>(bflags.data(), p.produced));
+      emit(std::span<const timing::BitSample>(bits.data(), p.produced),
+           std::span<const uint8_t>(bflags.data(), p.produced));
       if (p.consumed == 0 && p.produced == 0) break;
     }
   };
@@ -913,28 +978,55 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
   };
 
   uint64_t total = 0;
-  while (size_t n = reader.read(raw)) {
-    if (probe && probe->raw_samples.size() < probe->raw_samples_wanted) {
-      size_t k = std::min(n, probe->raw_samples_wanted - probe->raw_samples.size());
-      probe->raw_samples.insert(probe->raw_samples.end(), raw.begin(), raw.begin() + static_cast<long>(k));
+  auto run_front_end = [&] {
+    while (size_t n = reader.read(raw)) {
+      if (probe && probe->raw_samples.size() < probe->raw_samples_wanted) {
+        size_t k = std::min(n, probe->raw_samples_wanted - probe->raw_samples.size());
+        probe->raw_samples.insert(probe->raw_samples.end(), raw.begin(), raw.begin() + static_cast<long>(k));
+      }
+      total += n;
+      size_t off = 0;
+      while (off < n) {
+        Progress p = cond.process(std::span<const float>(raw.data() + off, n - off), conditioned, cflags);
+        off += p.consumed;
+        run_resampler(std::span<const float>(conditioned.data(), p.produced),
+                      std::span<const uint8_t>(cflags.data(), p.produced), false);
+        if (p.consumed == 0) break;
+      }
     }
-    total += n;
-    size_t off = 0;
-    while (off < n) {
-      Progress p = cond.process(std::span<const float>(raw.data() + off, n - off), conditioned, cflags);
-      off += p.consumed;
-      run_resampler(std::span<const float>(conditioned.data(), p.produced),
-                    std::span<const uint8_t>(cflags.data(), p.produced), false);
-      if (p.consumed == 0) break;
+    {
+      std::vector<float> tail(cond.pending() + 16);
+      std::vector<uint8_t> tf(tail.size());
+      Progress p = cond.flush(tail, tf);
+      run_resampler(std::span<const float>(tail.data(), p.produced), std::span<const uint8_t>(tf.data(), p.produced),
+                    false);
+      run_resampler({}, {}, true);
     }
-  }
-  {
-    std::vector<float> tail(cond.pending() + 16);
-    std::vector<uint8_t> tf(tail.size());
-    Progress p = cond.flush(tail, tf);
-    run_resampler(std::span<const float>(tail.data(), p.produced), std::span<const uint8_t>(tf.data(), p.produced),
-                  false);
-    run_resampler({}, {}, true);
+  };
+  if (!threaded) {
+    run_front_end();
+  } else {
+    // Load, conditioning, resampling and the PLL on a thread of their own; the framer
+    // (equalizers, detectors, sector decoding) here. An error on either side stops both.
+    std::exception_ptr front_error;
+    std::thread front([&] {
+      try {
+        run_front_end();
+      } catch (...) {
+        front_error = std::current_exception();
+      }
+      queue.close();
+    });
+    try {
+      BitBlockQueue::Block block;
+      while (queue.pop(block)) framer.push(block.bits, block.flags);
+    } catch (...) {
+      queue.cancel();
+      front.join();
+      throw;
+    }
+    front.join();
+    if (front_error) std::rethrow_exception(front_error);
   }
   framer.finish();
   if (probe) {

@@ -105,11 +105,16 @@ class CaptureDecoder {
   // CaptureResult::sectors stays empty; without one they are collected there.
   CaptureResult decode(const JobCapture& capture, const load::LoadOptions& load_options = {},
                        CaptureProbe* probe = nullptr, const SectorSink& sink = {});
+  // Run load, conditioning, resampling and the PLL on a second thread while this one
+  // frames and decodes sectors: for a job with a spare core per capture. The output is
+  // the same either way.
+  void set_front_end_thread(bool on) { front_end_thread_ = on; }
 
  private:
   const format::TrackFormat& fmt_;
   const detect::PluginHost& host_;
   DecodeSettings settings_;
+  bool front_end_thread_ = false;
 };
 
 }  // namespace salvor::pipeline

@@ -29,6 +29,13 @@ format::TrackFormat resolve_job_format(const Job& job, const std::string& format
   throw_usage("decode", "the inputs do not say which track format they are in: give --format");
 }
 
+// With at least two threads per capture, each capture splits its own decode in two
+// (front end | framer): a job of one long capture still uses both cores.
+static bool spare_core_per_capture(size_t captures, unsigned threads) {
+  if (threads == 0) threads = std::max(1u, std::thread::hardware_concurrency());  // 0 = all cores
+  return captures > 0 && threads >= 2 * captures;
+}
+
 results::Geometry geometry_of(const format::TrackFormat& fmt) {
   return results::Geometry{fmt.heads, fmt.cylinders, fmt.sectors_per_track, fmt.user_bytes};
 }
@@ -42,7 +49,12 @@ std::vector<CaptureSummary> run_job_collect(const Job& job, const format::TrackF
   // one per capture costs nothing and shares nothing between threads.
   parallel_for(
       n, options.threads,
-      [&](size_t i) { results[i] = CaptureDecoder(fmt, host, settings).decode(job.captures[i]); }, options.progress);
+      [&](size_t i) {
+        CaptureDecoder decoder(fmt, host, settings);
+        decoder.set_front_end_thread(spare_core_per_capture(n, options.threads));
+        results[i] = decoder.decode(job.captures[i]);
+      },
+      options.progress);
 
   std::vector<CaptureSummary> summaries;
   for (auto& r : results) {
@@ -130,7 +142,9 @@ JobRunResult run_job(const Job& job, const format::TrackFormat& fmt, const detec
       [&](size_t i) {
         const SectorSink sink = [&recorder, i](results::SectorAttempt&& a) { recorder.add(i, std::move(a)); };
         try {
-          summaries[i] = CaptureDecoder(fmt, host, settings).decode(job.captures[i], {}, nullptr, sink).summary;
+          CaptureDecoder decoder(fmt, host, settings);
+          decoder.set_front_end_thread(spare_core_per_capture(n, options.threads));
+          summaries[i] = decoder.decode(job.captures[i], {}, nullptr, sink).summary;
         } catch (...) {
           recorder.abort();
           throw;

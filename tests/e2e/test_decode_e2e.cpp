@@ -7,6 +7,7 @@
 #include <unistd.h>
 
 #include <chrono>
+#include <fstream>
 #include <random>
 #include <set>
 #include <thread>
@@ -206,9 +207,15 @@ TEST(DecodeE2E, InterruptedOutputIsNeverHalfWritten) {
     int status = 0;
     waitpid(pid, &status, 0);
     // Whatever exists under a final name is complete.
-    if (fs::exists(out / "image.bin")) EXPECT_EQ(fs::file_size(out / "image.bin"), 768u * kSector);
-    if (fs::exists(out / "damage-map.json")) EXPECT_NO_THROW(read_json(out / "damage-map.json"));
-    if (fs::exists(out / "sectors.jsonl")) EXPECT_NO_THROW(read_jsonl(out / "sectors.jsonl"));
+    if (fs::exists(out / "image.bin")) {
+      EXPECT_EQ(fs::file_size(out / "image.bin"), 768u * kSector);
+    }
+    if (fs::exists(out / "damage-map.json")) {
+      EXPECT_NO_THROW(read_json(out / "damage-map.json"));
+    }
+    if (fs::exists(out / "sectors.jsonl")) {
+      EXPECT_NO_THROW(read_jsonl(out / "sectors.jsonl"));
+    }
     if (fs::exists(out / "run.json")) {
       ++runs_with_files;
       nlohmann::json rj = read_json(out / "run.json");
@@ -219,6 +226,40 @@ TEST(DecodeE2E, InterruptedOutputIsNeverHalfWritten) {
   // Not asserted: which kills land after the end (timing varies); the property above is
   // what matters. Recorded for the log.
   std::printf("kills after completion: %d of 5\n", runs_with_files);
+}
+
+// A job with a spare core per capture splits each capture's decode in two threads (load
+// to PLL | framer and sector decoding): the same bytes as one thread, on a damaged capture
+// (the demo's scratched cylinder 10, head 0, with three revolutions in one job) and on a
+// capture that ends early (the error still names the file and exits 3 either way).
+TEST(DecodeE2E, SplitCaptureDecodeGivesTheSameBytes) {
+  fs::path demo = synth("demo", "", "demo");
+  fs::path out = scratch("split-out");
+  std::string caps;
+  for (int rev = 0; rev < 3; ++rev) caps += " " + (demo / "captures" / ("c010-h0-r" + std::to_string(rev) + ".flac")).string();
+  for (int th : {1, 6}) {  // 6 threads for 3 captures: each capture gets a second thread
+    RunResult r = run(bin("salvor") + " decode" + caps + " --detector pdnp --out " +
+                      (out / ("t" + std::to_string(th))).string() + " --threads " + std::to_string(th) + " -q");
+    ASSERT_EQ(r.exit_code, 4) << r.out;  // one track of the image: the rest is missing
+  }
+  for (const char* f : {"image.bin", "sectors.jsonl", "damage-map.json"}) {
+    EXPECT_TRUE(slurp(out / "t1" / f) == slurp(out / "t6" / f)) << f << " depends on the split";
+  }
+  EXPECT_GT(read_jsonl(out / "t1" / "sectors.jsonl").size(), 40u);
+
+  // The first capture cut in the middle of its sample data.
+  fs::path cut = out / "cut";
+  fs::create_directories(cut);
+  fs::path src = demo / "captures" / "c010-h0-r0.flac";
+  const std::string bytes = slurp(src);
+  std::ofstream(cut / "c010-h0-r0.flac", std::ios::binary).write(bytes.data(), static_cast<std::streamsize>(bytes.size() / 2));
+  fs::copy_file(fs::path(src.string() + ".json"), cut / "c010-h0-r0.flac.json");
+  for (int th : {1, 2}) {
+    RunResult r = run(bin("salvor") + " decode " + (cut / "c010-h0-r0.flac").string() + " --out " +
+                      (out / ("cut" + std::to_string(th))).string() + " --threads " + std::to_string(th) + " -q");
+    EXPECT_EQ(r.exit_code, 3) << th << " threads: " << r.out;
+    EXPECT_NE(r.out.find("c010-h0-r0.flac"), std::string::npos) << r.out;
+  }
 }
 
 TEST(DecodeE2E, BadInputsFailClearly) {
