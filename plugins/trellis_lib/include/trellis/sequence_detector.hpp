@@ -24,14 +24,14 @@
 // steps. When the window is full, the best survivor is traced back and all but the newest
 // traceback_depth steps are released (block traceback: 512 - depth bits per traceback,
 // each of them at least depth steps behind the end of the window); so at most 511 bits
-// are held back. The traceback costs two instructions per step (trace_levels). The add-compare-select runs in
-// float through the kernels of trellis/kernels.hpp (minimum subtracted after every 8th
-// step of the span); noise models are estimated in double. A span
-// starts with every state equally likely
-// (no assumption about the levels before the first sample) and flush() traces back from
-// the best final state. Block boundaries depend only on the step count, so any chunking
-// of the input gives the same bits and LLRs. The Euclidean metric runs in 16-bit fixed
-// point by default (fixed_point).
+// are held back. The traceback costs two instructions per step (trace_levels). The
+// add-compare-select runs through the kernels of trellis/kernels.hpp, the minimum
+// subtracted after every 8th step of the span: the Euclidean metric in 16-bit fixed point
+// by default (fixed_point), the noise-model metrics in float; noise models are estimated
+// in double. A span starts with every state equally likely (no assumption about the
+// levels before the first sample) and flush() traces back from the best final state.
+// Block boundaries depend only on the step count, so any chunking of the input gives the
+// same bits and LLRs.
 //
 // When noise_sigma is not known, s2 is estimated from the decided path: the mean square
 // of (y - yhat) (euclidean) or of the prediction error (noise-predictive, untrained),
