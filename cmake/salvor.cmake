@@ -35,6 +35,7 @@ function(salvor_add_test name)
   cmake_parse_arguments(ARG "" "" "SOURCES;DEPENDS;LABELS" ${ARGN})
   add_executable(${name} ${ARG_SOURCES})
   target_link_libraries(${name} PRIVATE ${ARG_DEPENDS} GTest::gtest GTest::gtest_main)
+  target_include_directories(${name} PRIVATE ${PROJECT_SOURCE_DIR}/tests/common)
   target_compile_definitions(${name} PRIVATE
     SALVOR_SOURCE_DIR="${PROJECT_SOURCE_DIR}"
     SALVOR_ORACLE_PYTHON="${SALVOR_ORACLE_PYTHON}"

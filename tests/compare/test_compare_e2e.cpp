@@ -17,6 +17,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "cli_test_util.hpp"
 #include "common/sha256.hpp"
 #include "compare/corpus.hpp"
 #include "compare/run_compare.hpp"
@@ -36,49 +37,13 @@ namespace {
 const std::string kSalvor = std::string(SALVOR_BIN_DIR) + "/salvor";
 const fs::path kSubset = fs::path(SALVOR_SOURCE_DIR) / "corpora" / "corpus" / "subset";
 
-fs::path scratch_root() {
-  static fs::path root = [] {
-    fs::path p = fs::temp_directory_path() / ("salvor-test-compare-" + std::to_string(::getpid()));
-    fs::remove_all(p);
-    fs::create_directories(p);
-    return p;
-  }();
-  return root;
-}
+using cli_test::CmdResult;
+using cli_test::read_json;
+using cli_test::scratch_root;
+using cli_test::slurp;
 
-// Removes this process's temporary folder when the tests end.
-class RemoveTemp : public ::testing::Environment {
- public:
-  void TearDown() override {
-    std::error_code ec;
-    fs::remove_all(scratch_root(), ec);
-  }
-};
-const auto* const kRemoveTemp = ::testing::AddGlobalTestEnvironment(new RemoveTemp);
-
-struct CmdResult {
-  int code;
-  std::string out, err;
-};
-
-std::string slurp(const fs::path& p) {
-  std::ifstream in(p, std::ios::binary);
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return ss.str();
-}
-
-CmdResult run(const std::string& args) {
-  static int n = 0;
-  ++n;
-  const fs::path out = scratch_root() / ("stdout-" + std::to_string(n)), err = scratch_root() / ("stderr-" + std::to_string(n));
-  const std::string cmd = "SALVOR_PLUGIN_PATH='" + std::string(SALVOR_PLUGIN_BUILD_DIR) + "' " + kSalvor + " " + args +
-                          " > '" + out.string() + "' 2> '" + err.string() + "'";
-  int st = std::system(cmd.c_str());
-  return {WIFEXITED(st) ? WEXITSTATUS(st) : -1, slurp(out), slurp(err)};
-}
-
-nlohmann::json read_json(const fs::path& p) { return nlohmann::json::parse(slurp(p)); }
+// salvor with these arguments.
+CmdResult run(const std::string& args) { return cli_test::run(kSalvor + " " + args); }
 
 // The comparison of the subset, run once for all tests below.
 const fs::path& compare_dir() {

@@ -11,6 +11,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "cli_test_util.hpp"
 #include "common/error.hpp"
 #include "compare/corpus.hpp"
 #include "compare/score.hpp"
@@ -26,22 +27,13 @@ namespace {
 
 const fs::path kSubset = fs::path(SALVOR_SOURCE_DIR) / "corpora" / "corpus" / "subset";
 
+// A fresh folder under this process's scratch folder (removed when the tests end).
 fs::path temp_dir(const std::string& name) {
-  fs::path p = fs::temp_directory_path() / ("salvor-test-compare-unit-" + std::to_string(::getpid())) / name;
+  fs::path p = cli_test::scratch_root() / name;
   fs::remove_all(p);
   fs::create_directories(p);
   return p;
 }
-
-// Removes this process's temporary folders when the tests end.
-class RemoveTemp : public ::testing::Environment {
- public:
-  void TearDown() override {
-    std::error_code ec;
-    fs::remove_all(fs::temp_directory_path() / ("salvor-test-compare-unit-" + std::to_string(::getpid())), ec);
-  }
-};
-const auto* const kRemoveTemp = ::testing::AddGlobalTestEnvironment(new RemoveTemp);
 
 std::vector<uint8_t> read_all(const fs::path& p) {
   std::ifstream in(p, std::ios::binary);

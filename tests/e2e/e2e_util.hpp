@@ -15,6 +15,8 @@
 
 #include <nlohmann/json.hpp>
 
+#include "cli_test_util.hpp"
+
 namespace e2e {
 
 namespace fs = std::filesystem;
@@ -46,14 +48,8 @@ inline fs::path scratch(const std::string& name) {
   return d;
 }
 
-inline std::string slurp(const fs::path& p) {
-  std::ifstream in(p, std::ios::binary);
-  std::ostringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
-
-inline nlohmann::json read_json(const fs::path& p) { return nlohmann::json::parse(slurp(p)); }
+using cli_test::read_json;
+using cli_test::slurp;
 
 inline std::vector<nlohmann::json> read_jsonl(const fs::path& p) {
   std::vector<nlohmann::json> v;

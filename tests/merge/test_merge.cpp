@@ -14,6 +14,7 @@
 
 #include <nlohmann/json.hpp>
 
+#include "cli_test_util.hpp"
 #include "common/sha256.hpp"
 #include "results/decode_folder.hpp"
 
@@ -28,52 +29,11 @@ namespace {
 const std::string kSalvor = std::string(SALVOR_BIN_DIR) + "/salvor";
 const std::string kSynth = std::string(SALVOR_BIN_DIR) + "/salvor-synth";
 
-fs::path scratch_root() {
-  static fs::path root = [] {
-    fs::path p = fs::temp_directory_path() / ("salvor-test-merge-" + std::to_string(::getpid()));
-    fs::remove_all(p);
-    fs::create_directories(p);
-    return p;
-  }();
-  return root;
-}
-
-// Removes this process's temporary folder when the tests end.
-class RemoveTemp : public ::testing::Environment {
- public:
-  void TearDown() override {
-    std::error_code ec;
-    fs::remove_all(scratch_root(), ec);
-  }
-};
-const auto* const kRemoveTemp = ::testing::AddGlobalTestEnvironment(new RemoveTemp);
-
-struct CmdResult {
-  int code;
-  std::string err;
-};
-
-// Runs a command line with the build's plugins; returns its exit code and stderr.
-CmdResult run(const std::string& cmd) {
-  static int n = 0;
-  const fs::path err = scratch_root() / ("stderr-" + std::to_string(++n) + ".txt");
-  const std::string full = "SALVOR_PLUGIN_PATH='" + std::string(SALVOR_PLUGIN_BUILD_DIR) + "' " + cmd + " > /dev/null 2> '" +
-                           err.string() + "'";
-  int st = std::system(full.c_str());
-  std::ifstream in(err);
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return {WIFEXITED(st) ? WEXITSTATUS(st) : -1, ss.str()};
-}
-
-std::string slurp(const fs::path& p) {
-  std::ifstream in(p, std::ios::binary);
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return ss.str();
-}
-
-nlohmann::json read_json(const fs::path& p) { return nlohmann::json::parse(slurp(p)); }
+using cli_test::CmdResult;
+using cli_test::read_json;
+using cli_test::run;
+using cli_test::scratch_root;
+using cli_test::slurp;
 
 std::vector<nlohmann::json> read_log(const fs::path& dir) {
   std::vector<nlohmann::json> out;
