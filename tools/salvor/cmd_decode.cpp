@@ -151,7 +151,8 @@ int run_decode(const std::vector<std::string>& args) {
     o.add_options()
         ("out,o", po::value(&out)->required(), "output folder (must not hold an earlier decode)")
         ("format", po::value(&format), "track format descriptor (name or path); default: from the manifest")
-        ("threads", po::value(&threads)->default_value(0), "worker threads (0 = all cores)")
+        ("threads", po::value(&threads)->default_value(0),
+         "worker threads (0 = all cores); with two or more per capture, each capture is decoded on two")
         ("fill-unverified", po::bool_switch(&fill_unverified), "write the fill pattern instead of a failed sector's best guess")
         ("fill-byte", po::value(&fill_byte)->default_value(-1), "fill byte 0..255 (-1: a text marker naming the LBA)")
         ("json", po::bool_switch(&json), "print the summary as JSON")
