@@ -35,14 +35,19 @@ void DropoutDetector::reset() {
   sum_abs_ = 0.0;
   next_in_ = next_center_ = window_start_ = 0;
   since_recompute_ = 0;
-  acc_ = weight_ = 0.0;
-  level_updates_ = 0;
+  level_ = Level{};
 }
 
 std::string DropoutDetector::describe() const {
   std::ostringstream s;
   s << "dropout: envelope over " << width_ << " samples below " << cfg_.threshold << " x running level";
   return s.str();
+}
+
+double DropoutDetector::exact_sum(uint64_t from, uint64_t to) const {
+  double sum = 0.0;
+  for (uint64_t k = from; k < to; ++k) sum += std::abs(ring_x_[k & mask_]);
+  return sum;
 }
 
 [[gnu::always_inline]] inline void DropoutDetector::pop_oldest() {
@@ -54,25 +59,29 @@ std::string DropoutDetector::describe() const {
   while (window_start_ + half_ < next_center_) pop_oldest();
   if (++since_recompute_ >= width_) {  // exact sum now and then: no rounding drift
     since_recompute_ = 0;
-    sum_abs_ = 0.0;
-    for (uint64_t k = window_start_; k < next_in_; ++k) sum_abs_ += std::abs(ring_x_[k & mask_]);
+    sum_abs_ = exact_sum(window_start_, next_in_);
   }
   const uint64_t i = next_center_++;
   const float x = ring_x_[i & mask_];
   uint8_t f = ring_f_[i & mask_];
-  // envelope < threshold x level, with envelope = sum / count and level = acc / weight,
-  // compared without the two divisions.
-  const double count = static_cast<double>(next_in_ - window_start_);
-  if (level_updates_ >= width_ && weight_ > 0.0 && sum_abs_ * weight_ < cfg_.threshold * acc_ * count)
-    f |= flag_dropout;
-  if (f == 0) {
-    acc_ = retain_ * acc_ + alpha_ * std::abs(x);
-    weight_ = retain_ * weight_ + alpha_;
-    ++level_updates_;
-  }
+  f = classify(x, f, sum_abs_, static_cast<double>(next_in_ - window_start_), level_);
   out[produced] = x;
   out_flags[produced] = f;
   ++produced;
+}
+
+[[gnu::always_inline]] inline uint8_t DropoutDetector::classify(float x, uint8_t f, double sum, double count,
+                                                                Level& level) const {
+  // envelope < threshold x level, with envelope = sum / count and level = acc / weight,
+  // compared without the two divisions.
+  if (level.updates >= width_ && level.weight > 0.0 && sum * level.weight < cfg_.threshold * level.acc * count)
+    f |= flag_dropout;
+  if (f == 0) {
+    level.acc = retain_ * level.acc + alpha_ * std::abs(x);
+    level.weight = retain_ * level.weight + alpha_;
+    ++level.updates;
+  }
+  return f;
 }
 
 size_t DropoutDetector::run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags, size_t k,
@@ -84,9 +93,9 @@ size_t DropoutDetector::run_steady(const float* in, const uint8_t* in_flags, flo
   uint8_t* rf = ring_f_.data();
   const uint64_t mask = mask_;
   const size_t width = width_;
-  uint64_t nin = next_in_, ws = window_start_, nc = next_center_, since = since_recompute_, lu = level_updates_;
-  double sum = sum_abs_, acc = acc_, weight = weight_;
-  const double alpha = alpha_, retain = retain_, threshold = cfg_.threshold;
+  uint64_t nin = next_in_, ws = window_start_, nc = next_center_, since = since_recompute_;
+  double sum = sum_abs_;
+  Level level = level_;
   const double count = static_cast<double>(width);
   for (; k < n; ++k) {
     sum -= std::abs(rx[ws & mask]);
@@ -97,18 +106,11 @@ size_t DropoutDetector::run_steady(const float* in, const uint8_t* in_flags, flo
     ++nin;
     if (++since >= width) {
       since = 0;
-      sum = 0.0;
-      for (uint64_t j = ws; j < nin; ++j) sum += std::abs(rx[j & mask]);
+      sum = exact_sum(ws, nin);
     }
     const uint64_t i = nc++;
     const float x = rx[i & mask];
-    uint8_t f = rf[i & mask];
-    if (lu >= width && weight > 0.0 && sum * weight < threshold * acc * count) f |= flag_dropout;
-    if (f == 0) {
-      acc = retain * acc + alpha * std::abs(x);
-      weight = retain * weight + alpha;
-      ++lu;
-    }
+    const uint8_t f = classify(x, rf[i & mask], sum, count, level);
     out[produced] = x;
     out_flags[produced] = f;
     ++produced;
@@ -117,10 +119,8 @@ size_t DropoutDetector::run_steady(const float* in, const uint8_t* in_flags, flo
   window_start_ = ws;
   next_center_ = nc;
   since_recompute_ = since;
-  level_updates_ = lu;
   sum_abs_ = sum;
-  acc_ = acc;
-  weight_ = weight;
+  level_ = level;
   return k;
 }
 

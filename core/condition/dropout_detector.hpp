@@ -42,8 +42,18 @@ class DropoutDetector {
  private:
   void emit_center(std::span<float> out, std::span<uint8_t> out_flags, size_t& produced);
   void pop_oldest();
+  double exact_sum(uint64_t from, uint64_t to) const;  // sum of |x| over ring indices [from, to)
   size_t run_steady(const float* in, const uint8_t* in_flags, float* out, uint8_t* out_flags, size_t k, size_t n,
                     size_t& produced);
+  // The running level of unflagged |x| (acc / weight) and how many samples made it.
+  struct Level {
+    double acc = 0.0, weight = 0.0;
+    uint64_t updates = 0;
+  };
+  // The centre sample's flags, with flag_dropout added when the envelope (sum / count)
+  // is below threshold x level; an unflagged sample then updates the level. Shared by the
+  // general path and the steady loop, which calls it on local copies.
+  uint8_t classify(float x, uint8_t flags, double sum, double count, Level& level) const;
   DropoutDetectorConfig cfg_;
   size_t half_, width_;
   double alpha_;
@@ -54,8 +64,7 @@ class DropoutDetector {
   double sum_abs_ = 0.0;
   uint64_t next_in_ = 0, next_center_ = 0, window_start_ = 0;
   uint64_t since_recompute_ = 0;
-  double acc_ = 0.0, weight_ = 0.0;
-  uint64_t level_updates_ = 0;
+  Level level_;
 };
 
 }  // namespace salvor
