@@ -33,7 +33,9 @@ namespace salvor::pipeline {
 namespace {
 
 // A bounded queue of bit-sample blocks between the front-end thread and the framer.
-// Locked once per block (tens of thousands of bits), never per bit.
+// Locked once per block (tens of thousands of bits), never per bit. The consumer hands
+// each block back (recycle) so that its buffers are reused: a fresh megabyte per block
+// would cost page faults on every one.
 class BitBlockQueue {
  public:
   struct Block {
@@ -44,7 +46,16 @@ class BitBlockQueue {
 
   // Blocks while the queue is full; returns at once after cancel().
   void push(std::span<const timing::BitSample> bits, std::span<const uint8_t> flags) {
-    Block b{{bits.begin(), bits.end()}, {flags.begin(), flags.end()}};
+    Block b;
+    {
+      std::lock_guard<std::mutex> lock(mu_);
+      if (!spare_.empty()) {
+        b = std::move(spare_.back());
+        spare_.pop_back();
+      }
+    }
+    b.bits.assign(bits.begin(), bits.end());
+    b.flags.assign(flags.begin(), flags.end());
     std::unique_lock<std::mutex> lock(mu_);
     space_.wait(lock, [&] { return blocks_.size() < capacity_ || cancelled_; });
     if (cancelled_) throw_internal("capture decode: the framer stopped");
@@ -61,6 +72,11 @@ class BitBlockQueue {
     space_.notify_one();
     return true;
   }
+  // A block the consumer is done with, for the producer to fill again.
+  void recycle(Block&& b) {
+    std::lock_guard<std::mutex> lock(mu_);
+    if (spare_.size() < capacity_) spare_.push_back(std::move(b));
+  }
   void close() {
     std::lock_guard<std::mutex> lock(mu_);
     closed_ = true;
@@ -76,10 +92,10 @@ class BitBlockQueue {
   std::mutex mu_;
   std::condition_variable ready_, space_;
   std::deque<Block> blocks_;
+  std::vector<Block> spare_;
   size_t capacity_;
   bool closed_ = false, cancelled_ = false;
 };
-
 
 using results::SectorAttempt;
 using results::SectorStatus;
@@ -1019,7 +1035,10 @@ CaptureResult CaptureDecoder::decode(const JobCapture& capture, const load::Load
     });
     try {
       BitBlockQueue::Block block;
-      while (queue.pop(block)) framer.push(block.bits, block.flags);
+      while (queue.pop(block)) {
+        framer.push(block.bits, block.flags);
+        queue.recycle(std::move(block));
+      }
     } catch (...) {
       queue.cancel();
       front.join();

@@ -64,12 +64,12 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
       d2min_(min_squared_distance(target)),
       np_estimator_(config.kind == MetricKind::noise_predictive ? N_ : 0),
       pd_estimator_(config.kind == MetricKind::pattern_dependent ? N_ : 0,
-                    config.kind == MetricKind::pattern_dependent ? config.pattern_bits : 1) {
+                    config.kind == MetricKind::pattern_dependent ? config.pattern_bits : 1),
+      trace_table_(trellis_.memory()) {
   const size_t S = static_cast<size_t>(S_);
   histf_.assign(static_cast<size_t>(N_) * S, 0.0f);
   euclidean_ = config_.kind == MetricKind::euclidean;
   fixed_ = euclidean_ && config_.fixed_point;
-  trace_table_ = TraceWordTable(trellis_.memory());
   decisions_.assign(fixed_ ? 0 : window_, 0);
   trace_dec_.assign(window_, 0);
   delta_.assign(config_.reliability && !fixed_ ? window_ * S : 0, 0.0f);
@@ -95,8 +95,17 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
   path_dec_.assign(padded, 0);
   path_delta_.assign(padded, 0.0f);
   path_slot_.assign(window_, 0);
-  // trace_levels' words plus room for the 8-byte reads of fill_path().
+  // trace_levels' words plus room for trace_back()'s 8-byte reads.
   path_levels_.assign(window_ / 64 + 3, 0);
+  // (m + 1)-bit window of survivor levels -> state | branch << 8 | NRZI bit << 9.
+  const int m = trellis_.memory();
+  path_code_.resize(2 * S);
+  for (int v = 0; v < 2 * S_; ++v) {
+    int state = 0;
+    for (int i = 0; i < m; ++i) state |= ((v >> (1 + i)) & 1) << (m - 1 - i);
+    const int bit = ((v >> m) ^ (v >> (m - 1))) & 1;
+    path_code_[v] = static_cast<uint16_t>(state | (v & 1) << 8 | bit << 9);
+  }
   pmf_.assign(S, 0.0f);
   out0f_.resize(S);
   out1f_.resize(S);
@@ -301,13 +310,7 @@ void SequenceDetector::trace_back(size_t n, size_t emit, size_t path_steps) {
   // Survivor state, branch and NRZI bit of each step from the level bits: after step t
   // the levels at bits t .. t + m are x_(t-m) .. x_t (branch, then the state reversed).
   const int S = S_;
-  uint16_t code[2 * kMaxStates];  // (m + 1)-bit window -> state | branch << 8 | nrzi << 9
-  for (int v = 0; v < 2 * S; ++v) {
-    int state = 0;
-    for (int i = 0; i < m; ++i) state |= ((v >> (1 + i)) & 1) << (m - 1 - i);
-    const int nrzi = ((v >> m) ^ (v >> (m - 1))) & 1;
-    code[v] = static_cast<uint16_t>(state | (v & 1) << 8 | nrzi << 9);
-  }
+  const uint16_t* code = path_code_.data();
   // Local pointers: byte stores may alias anything, so members would be reloaded.
   uint8_t* states = path_state_.data() + kPathPad;
   uint8_t* branches = path_branch_.data() + kPathPad;

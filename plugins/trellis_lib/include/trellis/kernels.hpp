@@ -125,7 +125,7 @@ void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size
 struct TraceWordTable {
   int memory = 0;
   std::vector<uint64_t> table;  // [byte * 256 + value]
-  explicit TraceWordTable(int memory_ = 1);
+  explicit TraceWordTable(int memory_);
   uint64_t operator()(uint32_t state_bits) const {
     uint64_t w = 0;
     for (int b = 0; b < ((1 << memory) + 7) / 8; ++b)

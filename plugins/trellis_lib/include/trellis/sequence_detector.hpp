@@ -160,6 +160,7 @@ class SequenceDetector {
   static constexpr size_t kPathPad = kMaxTraceback;  // room before step 0 (SOVA kernel)
   std::vector<uint32_t> path_dec_;  // decisions of the window in step order (SOVA)
   std::vector<uint64_t> path_levels_; // the survivor's levels as bits (trace_levels)
+  std::vector<uint16_t> path_code_;   // see the constructor
   std::vector<float> path_delta_;   // metric difference at each survivor merge
   std::vector<uint16_t> path_slot_; // ring slot of each step
   std::vector<float> path_rel_;
