@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstring>
 #include <sstream>
 
 #include "common/error.hpp"
@@ -21,6 +22,7 @@ Agc::Agc(const AgcConfig& c) : cfg_(c) {
     throw_usage("condition.agc.initial_gain", "must be > 0, got " + std::to_string(c.initial_gain));
   alpha_ = 1.0 - std::exp(-1.0 / (c.time_constant_bits * c.samples_per_bit));
   retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
+  tables_ = block_recursions::average_block_tables(alpha_, retain_);
   reset();
 }
 
@@ -28,6 +30,7 @@ void Agc::reset() {
   acc_ = weight_ = 0.0;
   gain_ = cfg_.initial_gain;
   frozen_ = cfg_.frozen;
+  level_.reset();
 }
 
 std::string Agc::describe() const {
@@ -38,8 +41,8 @@ std::string Agc::describe() const {
 }
 
 template <bool with_flags>
-Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
-                  std::span<uint8_t> out_flags) {
+Progress Agc::run_reference(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
+                            std::span<uint8_t> out_flags) {
   const size_t n = std::min(in.size(), out.size());
   // The state lives in locals for the loop: a flag byte store may alias any member, which
   // would otherwise force every member to be reloaded after it.
@@ -64,6 +67,50 @@ Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, 
   acc_ = acc;
   weight_ = weight;
   gain_ = gain;
+  return {n, n};
+}
+
+template <bool with_flags>
+Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
+                  std::span<uint8_t> out_flags) {
+  if (cfg_.reference_kernel) return run_reference<with_flags>(in, in_flags, out, out_flags);
+  using block_recursions::kBlock;
+  const size_t n = std::min(in.size(), out.size());
+  if constexpr (with_flags) std::copy_n(in_flags.begin(), n, out_flags.begin());
+  const double reference = cfg_.reference_rms, max_gain = cfg_.max_gain;
+  size_t i = 0;
+  while (i < n) {
+    if (level_.at_block_start() && !frozen_ && n - i >= kBlock) {
+      // Whole blocks in which no sample carries a flag.
+      size_t blocks = 0;
+      const size_t most = (n - i) / kBlock;
+      if constexpr (with_flags) {
+        const uint8_t* f = in_flags.data() + i;
+        while (blocks < most) {
+          uint64_t eight;
+          std::memcpy(&eight, f + blocks * kBlock, sizeof eight);
+          if (eight != 0) break;
+          ++blocks;
+        }
+      } else {
+        blocks = most;
+      }
+      if (blocks > 0) {
+        block_recursions::agc_blocks(tables_, in.data() + i, out.data() + i, blocks, level_, reference, max_gain, gain_);
+        i += blocks * kBlock;
+        continue;
+      }
+    }
+    const double x = in[i];
+    bool update = !frozen_;
+    if constexpr (with_flags) update = update && in_flags[i] == 0;
+    level_.step(tables_, update, x * x);
+    if (update) gain_ = block_recursions::agc_gain(level_.acc, level_.weight, reference, max_gain);
+    out[i] = static_cast<float>(x * gain_);
+    ++i;
+  }
+  acc_ = level_.acc;
+  weight_ = level_.weight;
   return {n, n};
 }
 

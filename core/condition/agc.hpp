@@ -9,6 +9,10 @@
 // the gain holds across them. freeze(true) holds the gain as well (e.g. after the
 // preamble, when a later gain loop takes over).
 //
+// Speed: where every sample of a block of 8 updates the level (no flag, not frozen), the
+// block runs in one vector (block_recursions.hpp); reference_kernel = true keeps the plain
+// sample-by-sample recursion, which tests/condition compare it with.
+//
 // Time behaviour (tested): after an amplitude step the mean square moves towards the new
 // level as 1 - exp(-t / tau); within 5 tau the output rms is within 1 % of the reference.
 
@@ -17,6 +21,7 @@
 #include <string>
 
 #include "common/stream.hpp"
+#include "condition/block_recursions.hpp"
 
 namespace salvor {
 
@@ -27,6 +32,7 @@ struct AgcConfig {
   double max_gain = 1e6;              // gain limit (silence must not blow up), > 0
   bool frozen = false;                // start with the gain held at initial_gain
   double initial_gain = 1.0;          // gain while frozen before any level was measured, > 0
+  bool reference_kernel = false;      // true: the plain recursion, one sample at a time
 };
 
 class Agc {
@@ -46,13 +52,20 @@ class Agc {
 
  private:
   template <bool with_flags>
+  Progress run_reference(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
+                         std::span<uint8_t> out_flags);
+  template <bool with_flags>
   Progress run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
                std::span<uint8_t> out_flags);
   AgcConfig cfg_;
   double alpha_;
   double retain_ = 1.0;  // 1 - alpha_
-  double acc_ = 0.0, weight_ = 0.0, gain_ = 1.0;
+  double acc_ = 0.0, weight_ = 0.0, gain_ = 1.0;  // as after the newest sample
   bool frozen_ = false;
+  // Block mode: the mean square as a block average (block_recursions.hpp), mirrored into
+  // acc_ and weight_ after each call.
+  block_recursions::AverageBlockTables tables_;
+  block_recursions::BlockAverage level_;
 };
 
 }  // namespace salvor

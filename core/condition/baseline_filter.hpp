@@ -20,18 +20,24 @@
 //
 // Start: the state is primed to the steady state for a constant input equal to the first
 // sample (the scipy.signal.lfilter_zi convention), so a DC offset does not ring.
+//
+// Speed: the recursion runs in blocks of 8 samples (block_recursions.hpp), one vector of
+// outputs per block; reference_kernel = true keeps the plain sample-by-sample recursion,
+// which tests/condition compare it with.
 
 #include <cstdint>
 #include <span>
 #include <string>
 
 #include "common/stream.hpp"
+#include "condition/block_recursions.hpp"
 
 namespace salvor {
 
 struct BaselineFilterConfig {
   double samples_per_bit = 0.0;   // capture samples per channel bit, > 1
   double corner_fraction = 1e-3;  // -3 dB corner as a fraction of the bit rate, (0, 0.05]
+  bool reference_kernel = false;  // true: the plain recursion, one sample at a time
 };
 
 class BaselineFilter {
@@ -52,10 +58,16 @@ class BaselineFilter {
   double corner_cycles_per_sample() const { return corner_; }
 
  private:
+  Progress process_reference(std::span<const float> in, std::span<float> out);
   double corner_;
   double b0_, b1_, b2_, a1_, a2_;
-  double s1_ = 0.0, s2_ = 0.0;  // transposed direct form II state
+  bool reference_kernel_ = false;
+  // Transposed direct form II state; in block mode, the state at the current block's start.
+  double s1_ = 0.0, s2_ = 0.0;
   bool primed_ = false;
+  block_recursions::BiquadBlockTables tables_;
+  double block_x_[block_recursions::kBlock] = {};  // inputs of the current block so far
+  size_t fill_ = 0;                                // samples of the current block so far
 };
 
 }  // namespace salvor

@@ -33,6 +33,16 @@ int Scrambler::next_bit() {
 }
 
 uint8_t Scrambler::next_byte() {
+  // When no feedback tap is nearer than a_{k-8} (taps clear below bit 7), the eight bits
+  // depend only on the state before them: bit j is the parity of (state << j) & taps, as
+  // the bits shifted in meanwhile sit below every tap. Eight independent parities instead
+  // of a chain of eight register steps.
+  if ((config_.taps & 0x7Fu) == 0) {
+    uint32_t b = 0;
+    for (int j = 0; j < 8; ++j) b |= static_cast<uint32_t>(parity32((state_ << j) & config_.taps)) << (7 - j);
+    state_ = ((state_ << 8) | b) & mask_;
+    return static_cast<uint8_t>(b);
+  }
   uint8_t b = 0;
   for (int i = 0; i < 8; ++i) b = static_cast<uint8_t>((b << 1) | next_bit());
   return b;

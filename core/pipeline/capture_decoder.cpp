@@ -12,7 +12,6 @@
 #include <filesystem>
 #include <mutex>
 #include <thread>
-#include <cstdio>
 #include <cstdlib>
 
 #include "common/error.hpp"
@@ -346,8 +345,14 @@ class TrackFramer {
   }
 
   void run_coarse(size_t n_new) {
-    std::vector<float> in(n_new), out(n_new);
-    std::vector<uint8_t> er(n_new);
+    // Member buffers: a fresh vector per block would be a fresh mapping (and page faults)
+    // at these sizes.
+    auto& in = coarse_scratch_.in;
+    auto& out = coarse_scratch_.out;
+    auto& er = coarse_scratch_.er_in;
+    in.resize(n_new);
+    out.resize(n_new);
+    er.resize(n_new);
     for (size_t i = 0; i < n_new; ++i) {
       const RingEntry& e = at(count_ - n_new + i);
       in[i] = e.value;
@@ -360,11 +365,14 @@ class TrackFramer {
   void feed_coarse_detector(std::span<const float> y, bool last) {
     // Equalizer output j lines up with bit sample j.
     for (size_t i = 0; i < y.size(); ++i) at(coarse_y_count_ + i).coarse_y = y[i];
-    std::vector<uint8_t> er(y.size());
+    auto& er = coarse_scratch_.er;
+    er.resize(y.size());
     for (size_t i = 0; i < y.size(); ++i) er[i] = at(coarse_y_count_ + i).flag != 0;
     coarse_y_count_ += y.size();
-    std::vector<uint8_t> bits(coarse_det_->capacity_for(y.size()));
-    std::vector<float> llr(bits.size());
+    auto& bits = coarse_scratch_.bits;
+    auto& llr = coarse_scratch_.llr;
+    bits.resize(coarse_det_->capacity_for(y.size()));
+    llr.resize(bits.size());
     size_t nb = coarse_det_->process(y, er, bits, llr);
     store_coarse_bits(std::span<const uint8_t>(bits.data(), nb));
     if (last) {
@@ -516,7 +524,6 @@ class TrackFramer {
     double corr = 0;
     for (size_t i = k0; i < std::min(L, k0 + known_len_); ++i) corr += cy[i] * convolve_at(coarse_target_, lv, i);
     const int level_before = corr < 0 ? -1 : 1;
-    if (std::getenv("SALVOR_DBG")) std::fprintf(stderr, "window %llu corr %.1f\n", (unsigned long long)w0, corr);
     if (corr < 0)
       for (auto& v : lv) v = static_cast<int8_t>(-v);
 
@@ -848,6 +855,10 @@ class TrackFramer {
     std::vector<float> x, cy, y, tmp, llr;
     std::vector<uint8_t> cb, er, tb, bits;
   } scratch_;
+  struct CoarseScratch {
+    std::vector<float> in, out, llr;
+    std::vector<uint8_t> er_in, er, bits;
+  } coarse_scratch_;
 
   void emit(SectorAttempt&& a) {
     if (sink_ && *sink_) {

@@ -8,6 +8,7 @@
 
 #include "../resample/readback_fixture.hpp"
 #include "chunking.hpp"
+#include "simd_targets.hpp"
 #include "common/error.hpp"
 #include "condition/agc.hpp"
 #include "condition/asymmetry.hpp"
@@ -58,6 +59,44 @@ double moving_average_max_abs(const std::vector<float>& d, size_t from, size_t t
     if (i >= from + w - 1) worst = std::max(worst, std::abs(sum / static_cast<double>(w)));
   }
   return worst;
+}
+
+double max_abs_difference(const std::vector<float>& a, const std::vector<float>& b) {
+  double worst = a.size() == b.size() ? 0.0 : INFINITY;
+  for (size_t i = 0; i < std::min(a.size(), b.size()); ++i)
+    worst = std::max(worst, std::abs(static_cast<double>(a[i]) - b[i]));
+  return worst;
+}
+
+// The block form of a recursive stage (block_recursions.hpp) on every SIMD target: the same
+// bits on each, and in any chunking (chunks of 1 use only the scalar lanes, the whole input
+// mostly the vector kernel); against the plain recursion (reference_kernel = true, the same
+// calls) within `tolerance`.
+template <class Stage, class Config>
+void expect_block_form_matches(Config c, const std::vector<float>& x, const std::vector<uint8_t>& flags,
+                               double tolerance) {
+  Config rc = c;
+  rc.reference_kernel = true;
+  Stage reference(rc);
+  const auto want = run_stage(reference, x, x.size(), flags);
+  Flagged first;
+  bool have_first = false;
+  for_each_simd_target([&] {
+    Stage whole(c);
+    const auto got = run_stage(whole, x, x.size(), flags);
+    if (!have_first) {
+      first = got;
+      have_first = true;
+    } else {
+      EXPECT_TRUE(got == first) << "differs from the first target's output";
+    }
+    for (size_t chunk : {size_t{1}, size_t{7}, size_t{13}, size_t{4096}}) {
+      Stage s(c);
+      EXPECT_TRUE(run_stage(s, x, chunk, flags) == got) << "chunk " << chunk;
+    }
+    EXPECT_EQ(got.f, want.f);
+    EXPECT_LE(max_abs_difference(got.x, want.x), tolerance);
+  });
 }
 
 }  // namespace
@@ -183,6 +222,63 @@ TEST(Agc, ReachesTheReferenceWithinItsTimeConstant) {
   EXPECT_NEAR(out_rms, 1.0, 0.01 * 1.0 + 0.03);  // 1 % plus the data's own power scatter over 1000 bits
   // From the start (bias-corrected level): the first time constant is already near the reference.
   EXPECT_NEAR(rms(std::span<const float>(y).subspan(tau / 2, tau)), 1.0, 0.1);
+}
+
+// Rounding is all that separates the block forms from the recursions: the double state by
+// ~1e-16 relative, so the float outputs by at most a float ulp or two at the output scale
+// (tolerance 4 ulp of the largest output; common practice, no source).
+TEST(BaselineFilter, BlockFormEqualsTheRecursion) {
+  BaselineFilterConfig c;
+  c.samples_per_bit = spb;
+  auto x = readback(20000, 21);
+  for (size_t i = 0; i < x.size(); ++i) x[i] += 0.4f + 0.3f * static_cast<float>(std::sin(2e-4 * pi * i / spb));
+  float peak = 0.0f;
+  for (float v : x) peak = std::max(peak, std::abs(v));
+  expect_block_form_matches<BaselineFilter>(c, x, {}, 4.0 * std::ldexp(peak, -23));
+}
+
+TEST(Agc, BlockFormEqualsTheRecursion) {
+  AgcConfig c;
+  c.samples_per_bit = spb;
+  c.time_constant_bits = 50;
+  c.reference_rms = 1.0;
+  auto x = readback(20000, 22, 0.2);
+  for (size_t i = x.size() / 3; i < x.size() / 2; ++i) x[i] *= 4.0f;  // a gain step to follow
+  // Flagged samples (held gain): runs across block edges, single ones, a long span.
+  std::vector<uint8_t> f(x.size(), 0);
+  std::mt19937 rng(9);
+  for (int k = 0; k < 40; ++k) {
+    const size_t at = rng() % (x.size() - 40), len = 1 + rng() % 20;
+    for (size_t i = at; i < at + len; ++i) f[i] = flag_thermal_asperity;
+  }
+  for (size_t i = 30000; i < 34000; ++i) f[i] = flag_dropout;
+  double peak = 0.0;
+  {
+    AgcConfig rc = c;
+    rc.reference_kernel = true;
+    Agc r(rc);
+    for (float v : run_stage(r, x, x.size(), f).x) peak = std::max(peak, std::abs(static_cast<double>(v)));
+  }
+  expect_block_form_matches<Agc>(c, x, f, 4.0 * std::ldexp(peak, -23));
+  expect_block_form_matches<Agc>(c, x, {}, 4.0 * std::ldexp(peak, -23));
+  // Freezing between calls, in the middle of a block: the same calls on both forms.
+  c.reference_kernel = false;
+  AgcConfig rc = c;
+  rc.reference_kernel = true;
+  for_each_simd_target([&] {
+    Agc a(c), r(rc);
+    std::vector<float> ya(x.size()), yr(x.size());
+    const size_t cuts[] = {0, 10003, 20005, 40001, x.size()};
+    for (int k = 0; k < 4; ++k) {
+      a.freeze(k % 2 == 1);
+      r.freeze(k % 2 == 1);
+      const size_t n = cuts[k + 1] - cuts[k];
+      a.process(std::span<const float>(x).subspan(cuts[k], n), std::span<float>(ya).subspan(cuts[k], n));
+      r.process(std::span<const float>(x).subspan(cuts[k], n), std::span<float>(yr).subspan(cuts[k], n));
+    }
+    EXPECT_LE(max_abs_difference(ya, yr), 4.0 * std::ldexp(peak, -23));
+    EXPECT_NEAR(a.gain(), r.gain(), 1e-12 * r.gain());
+  });
 }
 
 TEST(Agc, FreezeAndFlagsHoldTheGain) {

@@ -18,6 +18,7 @@
 #include <string>
 #include <vector>
 
+#include "simd_targets.hpp"
 #include "equalize/equalizer.hpp"
 #include "equalize/targets.hpp"
 #include "lorentzian_channel.hpp"
@@ -27,18 +28,10 @@ using salvor::testing::convolve_levels;
 using salvor::testing::lorentzian_bit_response;
 using salvor::testing::random_levels;
 
+using salvor::testing::for_each_simd_target;
+
 namespace {
 
-// Runs `body` once per compiled SIMD target this CPU supports, then restores dispatch.
-template <class Body>
-void for_each_target(Body body) {
-  for (int64_t target : hwy::SupportedAndGeneratedTargets()) {
-    hwy::SetSupportedTargetsForTest(target);
-    SCOPED_TRACE(hwy::TargetName(target));
-    body();
-  }
-  hwy::SetSupportedTargetsForTest(0);
-}
 
 struct EqRun {
   std::vector<float> out;
@@ -144,7 +137,7 @@ TEST(EqualizerSimd, FilterEqualsReferenceBitForBitOnRandomInput) {
     c.max_decision_latency = sh.latency;
     const auto ref = filter(c, true, x, erasure, {x.size()});
     ASSERT_EQ(ref.size(), x.size());
-    for_each_target([&] {
+    for_each_simd_target([&] {
       for (const std::vector<size_t>& chunks : {std::vector<size_t>{x.size()}, {1}, {7, 100, 3}, {1000}}) {
         EXPECT_EQ(filter(c, false, x, erasure, chunks), ref) << sh.taps << " taps, chunks of " << chunks[0];
       }
@@ -169,7 +162,7 @@ TEST(EqualizerSimd, TrainingMatchesReferenceOnRandomInput) {
       c.target = {1.0, 2.0, 0.0, -2.0, -1.0};  // E2PR4-like, 5 taps
       const EqRun ref = train(c, true, x, levels, erasure, {n});
       ASSERT_GT(ref.stats.count, 10000u);
-      for_each_target([&] {
+      for_each_simd_target([&] {
         SCOPED_TRACE(std::string(normalized ? "NLMS" : "LMS") + (fix_main ? ", main tap fixed" : ""));
         expect_close(train(c, false, x, levels, erasure, {n}), ref);
         expect_close(train(c, false, x, levels, erasure, {5, 64, 1, 333}), ref);
@@ -201,7 +194,7 @@ TEST(EqualizerSimd, MatchesReferenceOnSyntheticReadback) {
   EqualizerConfig trained = c;
   trained.initial_taps = ref.taps;
   const auto filtered_ref = filter(trained, true, fresh, none, {fresh.size()});
-  for_each_target([&] {
+  for_each_simd_target([&] {
     expect_close(train(c, false, x, levels, erasure, {x.size()}, 3), ref);
     expect_close(train(c, false, x, levels, erasure, {4096, 17}, 3), ref);
     EXPECT_EQ(filter(trained, false, fresh, none, {512}), filtered_ref);
@@ -242,5 +235,5 @@ TEST(EqualizerSimd, DecisionDirectedMatchesReference) {
   };
   const EqRun ref = run(true);
   ASSERT_GT(ref.stats.count, 7000u);
-  for_each_target([&] { expect_close(run(false), ref); });
+  for_each_simd_target([&] { expect_close(run(false), ref); });
 }

@@ -41,6 +41,24 @@ TEST(Scrambler, PeriodIsMaximal) {
   EXPECT_EQ(scrambler_period({4, 0b1010, 1}, 100), 6u);
 }
 
+TEST(Scrambler, ByteAtOnceEqualsBitByBit) {
+  // next_byte() takes eight bits at once when no tap is nearer than a_{k-8}; it must give
+  // the register's own bit sequence (next_bit, MSB first), for several polynomials on both
+  // sides of that rule (x^7 + x^4 + 1 has the tap a_{k-4}: the step-by-step path).
+  struct Poly { int degree; uint32_t taps; };
+  for (Poly p : {Poly{15, 0x6000}, Poly{31, 0x48000000}, Poly{9, 0x110}, Poly{7, 0x48}, Poly{4, 0b1100}}) {
+    for (uint32_t seed : {1u, 5u, (1u << p.degree) - 1}) {
+      Scrambler bytes({p.degree, p.taps, seed}), bits({p.degree, p.taps, seed});
+      for (int k = 0; k < 300; ++k) {
+        uint8_t want = 0;
+        for (int i = 0; i < 8; ++i) want = static_cast<uint8_t>((want << 1) | bits.next_bit());
+        ASSERT_EQ(bytes.next_byte(), want) << "degree " << p.degree << " seed " << seed << " byte " << k;
+        ASSERT_EQ(bytes.state(), bits.state());
+      }
+    }
+  }
+}
+
 TEST(Scrambler, SeedRuleAndRoundTrip) {
   EXPECT_EQ(scrambler_seed_for_lba(0, 15), 1u);
   EXPECT_EQ(scrambler_seed_for_lba(32766, 15), 32767u);

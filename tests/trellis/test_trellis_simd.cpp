@@ -12,9 +12,9 @@
 #include <cmath>
 #include <cstring>
 #include <utility>
-#include <functional>
 #include <random>
 
+#include "simd_targets.hpp"
 #include "channel_sim.hpp"
 #include "run_detector.hpp"
 #include "trellis/kernels.hpp"
@@ -23,6 +23,8 @@
 
 using namespace salvor::trellis;
 using namespace trellis_test;
+
+using salvor::testing::for_each_simd_target;
 
 namespace {
 
@@ -70,20 +72,10 @@ RandomBlock random_block(size_t n, double scale, std::mt19937_64& rng) {
 
 }  // namespace
 
-// Runs `body` once for every instruction set compiled in and supported here (Highway's
-// dispatch restricted to one target at a time), then restores the normal dispatch.
-static void for_each_target(const std::function<void()>& body) {
-  for (uint32_t target : hwy::SupportedAndGeneratedTargets()) {
-    hwy::SetSupportedTargetsForTest(target);
-    SCOPED_TRACE(hwy::TargetName(target));
-    body();
-  }
-  hwy::SetSupportedTargetsForTest(0);
-}
 
 TEST(TrellisSimd, EveryTargetIsExercised) {
   std::vector<std::string> seen;
-  for_each_target([&] { seen.push_back(simd_target_name()); });
+  for_each_simd_target([&] { seen.push_back(simd_target_name()); });
   ASSERT_FALSE(seen.empty());
   const auto targets = hwy::SupportedAndGeneratedTargets();
   for (size_t i = 0; i < seen.size(); ++i)
@@ -94,7 +86,7 @@ TEST(TrellisSimd, EveryTargetIsExercised) {
 // Every state count, with and without metric differences, random starting metrics and a
 // random renormalisation phase; blocks cut at odd lengths.
 TEST(TrellisSimd, ViterbiKernelEqualsScalarOnRandomInput) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
   std::mt19937_64 rng(101);
   for (const auto& f : kTargets) {
     const Trellis tr(f);
@@ -140,7 +132,7 @@ TEST(TrellisSimd, ViterbiKernelEqualsScalarOnRandomInput) {
 // random span positions (layout and renormalisation phases), samples beyond the clamp,
 // erasures; the SIMD side runs each block in two calls cut at a random step.
 TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
   std::mt19937_64 rng(404);
   for (const auto& f : kTargets) {
     const Trellis tr(f);
@@ -236,7 +228,7 @@ TEST(TrellisTraceback, TraceLevelsFollowsTheSurvivor) {
 // The noise-predictive / pattern-dependent kernel with random per-branch tables (bias,
 // variances, coefficients) and random survivor noise histories, every order 0..4.
 TEST(TrellisSimd, PredictiveKernelEqualsScalarOnRandomInput) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
     std::mt19937_64 rng(105);
     for (const auto& f : kTargets) {
       const Trellis tr(f);
@@ -282,7 +274,7 @@ TEST(TrellisSimd, PredictiveKernelEqualsScalarOnRandomInput) {
 }
 
 TEST(TrellisSimd, MaxLogKernelsEqualScalarOnRandomInput) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
   std::mt19937_64 rng(102);
   for (const auto& f : kTargets) {
     const Trellis tr(f);
@@ -369,7 +361,7 @@ std::vector<uint8_t> some_erasures(size_t n, uint64_t seed) {
 }  // namespace
 
 TEST(TrellisSimd, ViterbiDetectorEqualsScalarOnSyntheticReadback) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
   const auto y_pr4 = lorentzian_readback(30000, 201);
   const auto y_e2 = e2pr4_readback(30000, 0.6, 202);
   const auto er = some_erasures(30000, 203);
@@ -391,7 +383,7 @@ TEST(TrellisSimd, ViterbiDetectorEqualsScalarOnSyntheticReadback) {
 
 // The noise-predictive metrics stay in double; their SOVA update takes the SIMD path.
 TEST(TrellisSimd, NoisePredictiveSovaEqualsScalarOnSyntheticReadback) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
     LorentzianChannel ch;
     ch.density = 2.5;
     ch.jitter_sigma = 0.05;
@@ -422,7 +414,7 @@ TEST(TrellisSimd, NoisePredictiveSovaEqualsScalarOnSyntheticReadback) {
 }
 
 TEST(TrellisSimd, MaxLogMapEqualsScalarOnSyntheticReadback) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
   const auto y_pr4 = lorentzian_readback(30000, 211);
   const auto y_e2 = e2pr4_readback(30000, 0.6, 212);
   const auto er = some_erasures(30000, 213);
@@ -443,7 +435,7 @@ TEST(TrellisSimd, MaxLogMapEqualsScalarOnSyntheticReadback) {
 // (so that competitors do meet it), random deltas with some skipped (+inf), every memory
 // and window length; the padding the SIMD kernel needs is filled with junk.
 TEST(TrellisSimd, SovaKernelEqualsScalarOnRandomPaths) {
-  for_each_target([&] {
+  for_each_simd_target([&] {
     std::mt19937_64 rng(103);
     for (int m = 1; m <= kMaxMemory; ++m)
       for (size_t window : {1, 5, 32, 64, 256}) {
