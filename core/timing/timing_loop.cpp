@@ -118,6 +118,7 @@ void TimingLoop::reset() {
   prev_time_ = next_time_ - cfg_.samples_per_bit;
   rate_int_ = 1.0 - 1.0 / (1.0 + cfg_.initial_rate_offset);
   recent_.assign(size_t(2 * cfg_.detect_window), 0.0);
+  recent_n_ = recent_.size();
   recent_count_ = 0;
   recent_slot_ = 0;
   detect_old_half_ = detect_new_half_ = 0;
@@ -130,6 +131,7 @@ void TimingLoop::reset() {
   taps_ = fir_;
   for (size_t i = 0; i < taps_.size() / 2; ++i)
     taps_[i] = taps_[taps_.size() - 1 - i] = 0.5 * (taps_[i] + taps_[taps_.size() - 1 - i]);
+  nt_ = taps_.size();
   line_power_ = 0;
   bits_since_power_ = 0;
   recent_q_.assign(kShortWindow, 0.0);
@@ -179,7 +181,7 @@ inline int64_t floor_index(double t) { return t >= 0 ? int64_t(t) : int64_t(std:
   // Instants are >= 0 after the first bit; truncation is floor there (and cheaper).
   const double m = t >= 0 ? double(int64_t(t)) : std::floor(t);
   const int64_t mi = int64_t(m);
-  if (mi >= 1 && mi + 2 <= newest_ && mi - 1 > newest_ - int64_t(hist_.size())) {  // the usual case
+  if (mi >= 1 && mi + 2 <= newest_ && mi - 1 > newest_ - (hist_mask_ + 1)) {  // the usual case
     const double* h = hist_.data();
     return farrow_cubic({h[(mi - 1) & hist_mask_], h[mi & hist_mask_], h[(mi + 1) & hist_mask_],
                          h[(mi + 2) & hist_mask_]},
@@ -210,14 +212,12 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
 
 namespace {
 // sum += y e^{-i pi k / 2}: one real addition or subtraction (the rotation is a quarter turn).
+// Branch-free: the part k & 1 (0 real, 1 imaginary) gains sign(k) y, and adding -y is
+// subtracting y, to the bit.
 inline void add_rotated(std::complex<double>& sum, double y, uint64_t k) {
+  static constexpr double kSign[4] = {1.0, -1.0, -1.0, 1.0};
   double* c = reinterpret_cast<double*>(&sum);  // [real, imaginary], as the standard lays it out
-  switch (k & 3) {
-    case 0: c[0] += y; break;
-    case 1: c[1] -= y; break;
-    case 2: c[0] -= y; break;
-    default: c[1] += y; break;
-  }
+  c[k & 1] += kSign[k & 3] * y;
 }
 
 // e^{-i pi k / 2} for k mod 4.
@@ -266,7 +266,7 @@ void TimingLoop::recompute_detection_sums() {
 }
 
 [[gnu::always_inline]] inline void TimingLoop::slide_detection_window(double y) {
-  const uint64_t n = recent_.size();  // 2 * detect_window
+  const uint64_t n = recent_n_;  // 2 * detect_window
   const uint64_t w = uint64_t(cfg_.detect_window);
   const uint64_t k = recent_count_;
   // Slot of k in the ring, kept by wrapping instead of k % n (a 64-bit division per bit).
@@ -402,7 +402,7 @@ void TimingLoop::produce_one(BitSample& out) {
   slide_detection_window(y);
 
   // prefilter (runs in every mode so that its delay line is full when tracking starts)
-  const size_t nt = taps_.size();
+  const size_t nt = nt_;
   const double leaving = fir_line_[fir_pos_];  // y_{k-nt}, overwritten now
   fir_line_[fir_pos_] = y;
   fir_line_[fir_pos_ + nt] = y;
@@ -438,7 +438,7 @@ void TimingLoop::produce_one(BitSample& out) {
       double ratio = 0;
       if (state_bits_ >= cfg_.detect_window && detect_preamble(ratio)) {
         // detection needs about 3/4 of a window of tone; the ZPS window is twice as long
-        if (++detect_run_ > int(recent_.size()) - (3 * cfg_.detect_window) / 4) {
+        if (++detect_run_ > int(recent_n_) - (3 * cfg_.detect_window) / 4) {
           zero_phase_start(0.0);
           state_ = TimingState::acquire;
           state_bits_ = 0;
@@ -501,11 +501,13 @@ void TimingLoop::produce_one(BitSample& out) {
       if (cfg_.prefilter_step > 0) {
         const double mu = cfg_.prefilter_step * g / std::max(line_power_, 1e-12);
         const double err = q - d;
-        for (size_t i = 0; i < half; ++i) {
-          taps_[i] -= mu * err * fold[i] / 2;
-          taps_[nt - 1 - i] = taps_[i];
-        }
-        taps_[half] -= mu * err * fold[half];
+        // Only taps 0..half are kept (the dot above folds the mirror image in); halving the
+        // step first is exact, so each update is the bits of mu err fold / 2.
+        const double me = mu * err;
+        const double me_half = me * 0.5;
+        double* w = taps_.data();
+        for (size_t i = 0; i < half; ++i) w[i] -= me_half * fold[i];
+        w[half] -= me * fold[half];
       }
       const double a = inv_lock_average_;
       sig_pow_ += a * (u * u - sig_pow_);
@@ -532,7 +534,7 @@ void TimingLoop::produce_one(BitSample& out) {
       // sync mark may look like tone for a few bits.)
       double ratio = 0;
       if (state_bits_ > 4 * cfg_.detect_window && detect_preamble(ratio)) {
-        if (++detect_run_ > int(recent_.size()) - (3 * cfg_.detect_window) / 4) {
+        if (++detect_run_ > int(recent_n_) - (3 * cfg_.detect_window) / 4) {
           detect_run_ = -(1 << 30);  // once per preamble
           if (zero_phase_start(kReacquireShiftBits)) {
             state_ = TimingState::acquire;

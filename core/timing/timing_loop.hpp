@@ -131,7 +131,12 @@ class TimingLoop {
   void drain_trace(std::vector<TimingTracePoint>& dst);
   void drain_events(std::vector<LockEvent>& dst);
 
-  const std::vector<double>& prefilter() const { return taps_; }
+  // The prefilter taps in use (symmetric: the loop adapts taps 0..n/2 and mirrors them here).
+  std::vector<double> prefilter() const {
+    std::vector<double> w = taps_;
+    for (size_t i = 0; i < w.size() / 2; ++i) w[w.size() - 1 - i] = w[i];
+    return w;
+  }
   // Slope of the data-mode detector's S-curve for unit amplitude (per bit), from the
   // Lorentzian model with i.i.d. channel bits; the detector output is divided by it.
   double data_detector_slope() const { return data_slope_; }
@@ -181,6 +186,7 @@ class TimingLoop {
   std::vector<double> recent_;
   uint64_t recent_count_ = 0;
   uint64_t recent_slot_ = 0;  // recent_count_ % recent_.size()
+  uint64_t recent_n_ = 0;     // recent_.size()
   // Running sums over the newest detect_window entries of recent_, so that preamble
   // detection costs O(1) per bit: DFT bin 1/(4T) of the older and the newer half (phase
   // referenced to the absolute bit count, which leaves the norms unchanged) and energy.
@@ -189,7 +195,8 @@ class TimingLoop {
   int bits_since_recompute_ = 0;
 
   // prefilter delay line (ring of prefilter_taps) and its output history
-  std::vector<double> taps_;      // prefilter taps in use (adapted in track mode)
+  std::vector<double> taps_;      // prefilter taps in use (adapted in track mode; only 0..n/2 kept up to date)
+  size_t nt_ = 0;                 // taps_.size()
   std::vector<double> fir_line_;  // doubled delay line: y_{k-i} = fir_line_[fir_pos_ + nt - i]
   size_t fir_pos_ = 0;
   std::vector<double> recent_q_;  // last 16 prefilter outputs

@@ -313,6 +313,51 @@ TEST(TrellisSimd, MaxLogKernelsEqualScalarOnRandomInput) {
   });
 }
 
+// The forward and backward recursions side by side (maxlog_forward_backward_simd) against
+// the scalar forward, then backward: the same alpha, final beta, LLRs and best branches,
+// bit for bit, for block lengths down to 0 and 1 and warm-ups of every length.
+TEST(TrellisSimd, MaxLogSideBySideEqualsForwardThenBackward) {
+  for_each_simd_target([&] {
+    std::mt19937_64 rng(104);
+    for (const auto& f : kTargets) {
+      const Trellis tr(f);
+      const int S = tr.states();
+      const Tables tb = tables_of(tr);
+      const MaxLogTables mt{S, tb.out0.data(), tb.out1.data(), tb.nrzi0.data(), tb.nrzi1.data()};
+      for (int trial = 0; trial < 10; ++trial) {
+        const size_t emit = trial == 0 ? 0 : trial == 1 ? 1 : rng() % 400;
+        const size_t total = emit + (trial % 3 == 0 ? 0 : rng() % 100);
+        if (total == 0) continue;
+        const RandomBlock in = random_block(total, 1.0 + 2.0 * (trial % 3), rng);
+        const uint8_t* er = trial % 4 == 3 ? nullptr : in.erased.data();
+        std::uniform_real_distribution<float> u(-30.0f, 0.0f);
+        std::vector<float> a_in(S), b_a(S), b_b;
+        for (auto& v : a_in) v = u(rng);
+        for (auto& v : b_a) v = u(rng);
+        b_b = b_a;
+        std::vector<float> al_a(std::max<size_t>(emit, 1) * S), al_b(al_a.size(), 5.0f);
+        std::vector<float> raw_a(emit + 1, 1.0f), raw_b(emit + 1, 1.0f), kept((emit - emit / 2 + 2 * (emit / 2)) * S + 1, 7.0f);
+        std::vector<uint16_t> best_a(emit + 1, 1), best_b(emit + 1, 1);
+        maxlog_forward_scalar(mt, a_in.data(), in.y.data(), er, emit, al_a.data());
+        maxlog_backward_scalar(mt, a_in.data(), al_a.data(), in.y.data(), er, total, emit, b_a.data(), raw_a.data(),
+                               best_a.data());
+        maxlog_forward_backward_simd(mt, a_in.data(), in.y.data(), er, emit, total, al_b.data(), b_b.data(),
+                                     kept.data(), raw_b.data(), trial % 2 ? best_b.data() : nullptr);
+        const std::string what = std::to_string(S) + " states, emit " + std::to_string(emit) + ", total " +
+                                 std::to_string(total);
+        if (emit > 0) {
+          EXPECT_TRUE(same_bytes(al_a, al_b)) << what;
+        }
+        EXPECT_TRUE(same_bytes(b_a, b_b)) << what;
+        EXPECT_TRUE(same_bytes(raw_a, raw_b)) << what;
+        if (trial % 2) {
+          EXPECT_TRUE(same_bytes(best_a, best_b)) << what;
+        }
+      }
+    }
+  });
+}
+
 namespace {
 
 // Equalized readback of a Lorentzian channel with jitter and noise (PR4 target).

@@ -36,6 +36,7 @@ MaxLogMap::MaxLogMap(std::span<const double> target, const MaxLogMapConfig& conf
   alpha_start_.assign(S, 0.0f);
   alpha_.assign(capacity_ * S, 0.0f);
   beta_.assign(S, 0.0f);
+  beta_kept_.assign((capacity_ / 2 + 1 + 2 * (capacity_ / 2)) * S, 0.0f);  // see maxlog_forward_backward_simd
   raw_.assign(capacity_, 0.0f);
   best_branch_.assign(capacity_, 0);
   y_lin_.assign(capacity_, 0.0f);
@@ -66,11 +67,10 @@ void MaxLogMap::run(size_t emit, size_t total, std::span<uint8_t> bits, std::spa
   // The best branch is only needed for the noise estimate.
   uint16_t* best = config_.noise_sigma > 0.0 ? nullptr : best_branch_.data();
   if (config_.simd) {
-    maxlog_forward_simd(tab, alpha_start_.data(), y_lin_.data(), erased_lin_.data(), emit,
-                        alpha_.data());
+    // Forward and backward side by side (the same bits as one after the other).
     std::fill(beta_.begin(), beta_.end(), 0.0f);
-    maxlog_backward_simd(tab, alpha_start_.data(), alpha_.data(), y_lin_.data(),
-                         erased_lin_.data(), total, emit, beta_.data(), raw_.data(), best);
+    maxlog_forward_backward_simd(tab, alpha_start_.data(), y_lin_.data(), erased_lin_.data(), emit, total,
+                                 alpha_.data(), beta_.data(), beta_kept_.data(), raw_.data(), best);
   } else {
     maxlog_forward_scalar(tab, alpha_start_.data(), y_lin_.data(), erased_lin_.data(), emit,
                           alpha_.data());

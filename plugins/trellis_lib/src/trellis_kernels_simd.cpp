@@ -426,43 +426,6 @@ void ViterbiPredictive(const PredictiveAcs& t, float* pm, float* hist, size_t ph
 #endif
 }
 
-template <int S>
-void MaxLogForwardS(const MaxLogTables& t, const float* alpha_in, const float* y,
-                    const uint8_t* erased, size_t n, float* alpha_out) {
-  using D = hn::CappedTag<float, S>;
-  const D d;
-  using V = hn::Vec<D>;
-  constexpr size_t N = hn::MaxLanes(D());
-  constexpr size_t C = S / N;
-  const PredIndex<D> ix(d);
-  V a[C], o0[C], o1[C], next[C];
-  for (size_t c = 0; c < C; ++c) {
-    a[c] = hn::LoadU(d, alpha_in + c * N);
-    o0[c] = hn::LoadU(d, t.out0 + c * N);
-    o1[c] = hn::LoadU(d, t.out1 + c * N);
-  }
-  for (size_t k = 0; k < n; ++k) {
-    const V yv = hn::Set(d, y[k]);
-    const bool er = erased != nullptr && erased[k] != 0;
-    for (size_t c = 0; c < C; ++c) {
-      V v0, v1;
-      gather_preds<C>(ix, a, c, v0, v1);
-      if (!er) {
-        const V e0 = hn::Sub(yv, o0[c]), e1 = hn::Sub(yv, o1[c]);
-        v0 = hn::Sub(v0, hn::Mul(e0, e0));
-        v1 = hn::Sub(v1, hn::Mul(e1, e1));
-      }
-      next[c] = hn::Max(v0, v1);
-    }
-    V high = hn::Zero(d);
-    if ((k + 1) % kRenormInterval == 0 || k + 1 == n) high = hn::Set(d, hn::GetLane(next[0]));
-    for (size_t c = 0; c < C; ++c) {
-      a[c] = hn::Sub(next[c], high);
-      hn::StoreU(a[c], d, alpha_out + k * S + c * N);
-    }
-  }
-}
-
 #if HWY_TARGET != HWY_SCALAR
 // The maxima over the lanes of a and of b, reduced together: the halves of both are
 // folded into one vector first, so the shuffle-and-max steps run once for the two.
@@ -484,42 +447,37 @@ HWY_INLINE void max_of_lanes_of_two(D d, hn::Vec<D> a, hn::Vec<D> b, float& max_
   }
 }
 
+// The steps of the max-log-MAP recursions on S states in C vectors of N lanes, written once
+// for the forward kernel, the backward kernel and the two run side by side.
 template <int S>
-void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* alpha,
-                     const float* y, const uint8_t* erased, size_t n, size_t n_llr,
-                     float* beta_io, float* raw, uint16_t* best_branch) {
+struct MaxLogSteps {
   using D = hn::CappedTag<float, S>;
-  const D d;
   using V = hn::Vec<D>;
-  constexpr size_t N = hn::MaxLanes(D());
-  constexpr size_t C = S / N;
-  const PredIndex<D> ix(d);
-  const V neg_inf = hn::Set(d, -std::numeric_limits<float>::infinity());
-  V b[C], o0[C], o1[C], w0[C], w1[C], v0[C], v1[C];
+  static constexpr size_t N = hn::MaxLanes(D());
+  static constexpr size_t C = S / N;
+  D d;
+  PredIndex<D> ix{d};
+  V o0[C], o1[C], neg_inf;
   hn::Mask<D> one0[C], one1[C];  // branch carries NRZI bit 1
-  // With memory >= 2 the NRZI bit x_k xor x_(k-1) is the new state's own: equal for both
-  // branches into it.
-  bool same_bits = true;
-  for (int s = 0; s < S; ++s) same_bits = same_bits && t.nrzi0[s] == t.nrzi1[s];
-  for (size_t c = 0; c < C; ++c) {
-    b[c] = hn::LoadU(d, beta_io + c * N);
-    o0[c] = hn::LoadU(d, t.out0 + c * N);
-    o1[c] = hn::LoadU(d, t.out1 + c * N);
-    alignas(64) float f0[N], f1[N];
-    for (size_t l = 0; l < N; ++l) {
-      f0[l] = t.nrzi0[c * N + l] ? 1.0f : 0.0f;
-      f1[l] = t.nrzi1[c * N + l] ? 1.0f : 0.0f;
-    }
-    one0[c] = hn::Gt(hn::Load(d, f0), hn::Zero(d));
-    one1[c] = hn::Gt(hn::Load(d, f1), hn::Zero(d));
-  }
-  for (size_t k = n; k-- > 0;) {
-    const size_t done = n - k;  // steps of this call including k
-    const V yv = hn::Set(d, y[k]);
-    const bool er = erased != nullptr && erased[k] != 0;
-    V g0[C], g1[C];  // squared errors (0 when erased)
+
+  explicit MaxLogSteps(const MaxLogTables& t) : neg_inf(hn::Set(d, -std::numeric_limits<float>::infinity())) {
     for (size_t c = 0; c < C; ++c) {
-      if (er) {
+      o0[c] = hn::LoadU(d, t.out0 + c * N);
+      o1[c] = hn::LoadU(d, t.out1 + c * N);
+      alignas(64) float f0[N], f1[N];
+      for (size_t l = 0; l < N; ++l) {
+        f0[l] = t.nrzi0[c * N + l] ? 1.0f : 0.0f;
+        f1[l] = t.nrzi1[c * N + l] ? 1.0f : 0.0f;
+      }
+      one0[c] = hn::Gt(hn::Load(d, f0), hn::Zero(d));
+      one1[c] = hn::Gt(hn::Load(d, f1), hn::Zero(d));
+    }
+  }
+  // Squared errors of the branches into each state (0 when erased).
+  HWY_INLINE void gammas(float y, bool erased, V* g0, V* g1) const {
+    const V yv = hn::Set(d, y);
+    for (size_t c = 0; c < C; ++c) {
+      if (erased) {
         g0[c] = hn::Zero(d);
         g1[c] = hn::Zero(d);
       } else {
@@ -528,69 +486,223 @@ void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* 
         g1[c] = hn::Mul(e1, e1);
       }
     }
-    if (k < n_llr) {
-      const float* arow = k == 0 ? alpha_in : alpha + (k - 1) * S;
-      V a[C];
-      for (size_t c = 0; c < C; ++c) a[c] = hn::LoadU(d, arow + c * N);
-      V acc1 = neg_inf, acc0 = neg_inf;
-      for (size_t c = 0; c < C; ++c) {
-        V p0, p1;
-        gather_preds<C>(ix, a, c, p0, p1);
-        v0[c] = hn::Add(hn::Sub(p0, g0[c]), b[c]);
-        v1[c] = hn::Add(hn::Sub(p1, g1[c]), b[c]);
-        if (same_bits) {  // both branches into a state carry its NRZI bit: one blend each
-          const V v = hn::Max(v0[c], v1[c]);
-          acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v, neg_inf));
-          acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v));
-        } else {
-          acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v0[c], neg_inf));
-          acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v0[c]));
-          acc1 = hn::Max(acc1, hn::IfThenElse(one1[c], v1[c], neg_inf));
-          acc0 = hn::Max(acc0, hn::IfThenElse(one1[c], neg_inf, v1[c]));
-        }
-      }
-      float best1, best0;
-      max_of_lanes_of_two(d, acc1, acc0, best1, best0);
-      raw[k] = best1 - best0;
-      if (best_branch) {
-        const V best = hn::Set(d, best1 > best0 ? best1 : best0);
-        uint16_t found = 0;
-        bool done = false;
-        for (size_t j = 0; j < 2 && !done; ++j)
-          for (size_t c = 0; c < C && !done; ++c) {
-            const intptr_t lane = hn::FindFirstTrue(d, hn::Eq(j ? v1[c] : v0[c], best));
-            if (lane >= 0) {
-              found = static_cast<uint16_t>(j * S + c * N + static_cast<size_t>(lane));
-              done = true;
-            }
-          }
-        best_branch[k] = found;
+  }
+  // Path metrics into each state by branch 0 and 1: the predecessors' alpha minus gamma.
+  HWY_INLINE void into(const V* a, const V* g0, const V* g1, V* w0, V* w1) const {
+    for (size_t c = 0; c < C; ++c) {
+      V p0, p1;
+      gather_preds<C>(ix, a, c, p0, p1);
+      w0[c] = hn::Sub(p0, g0[c]);
+      w1[c] = hn::Sub(p1, g1[c]);
+    }
+  }
+  // alpha <- max over the two branches, less state 0's metric when renormalising.
+  HWY_INLINE void forward(const V* w0, const V* w1, bool renorm, V* a) const {
+    V next[C];
+    for (size_t c = 0; c < C; ++c) next[c] = hn::Max(w0[c], w1[c]);
+    const V high = renorm ? hn::Set(d, hn::GetLane(next[0])) : hn::Zero(d);
+    for (size_t c = 0; c < C; ++c) a[c] = hn::Sub(next[c], high);
+  }
+  // raw = max over bit-1 branches of (w + beta) - max over bit-0 branches; best: the first
+  // branch j * S + s (order j, then s) that reaches the overall maximum, when asked.
+  template <bool kSameBits>
+  HWY_INLINE void llr(const V* w0, const V* w1, const V* b, float* raw, uint16_t* best) const {
+    V v0[C], v1[C];
+    V acc1 = neg_inf, acc0 = neg_inf;
+    for (size_t c = 0; c < C; ++c) {
+      v0[c] = hn::Add(w0[c], b[c]);
+      v1[c] = hn::Add(w1[c], b[c]);
+      if constexpr (kSameBits) {  // both branches into a state carry its NRZI bit: one blend each
+        const V v = hn::Max(v0[c], v1[c]);
+        acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v, neg_inf));
+        acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v));
+      } else {
+        acc1 = hn::Max(acc1, hn::IfThenElse(one0[c], v0[c], neg_inf));
+        acc0 = hn::Max(acc0, hn::IfThenElse(one0[c], neg_inf, v0[c]));
+        acc1 = hn::Max(acc1, hn::IfThenElse(one1[c], v1[c], neg_inf));
+        acc0 = hn::Max(acc0, hn::IfThenElse(one1[c], neg_inf, v1[c]));
       }
     }
+    float best1, best0;
+    max_of_lanes_of_two(d, acc1, acc0, best1, best0);
+    *raw = best1 - best0;
+    if (best) {
+      const V top = hn::Set(d, best1 > best0 ? best1 : best0);
+      uint16_t found = 0;
+      bool done = false;
+      for (size_t j = 0; j < 2 && !done; ++j)
+        for (size_t c = 0; c < C && !done; ++c) {
+          const intptr_t lane = hn::FindFirstTrue(d, hn::Eq(j ? v1[c] : v0[c], top));
+          if (lane >= 0) {
+            found = static_cast<uint16_t>(j * S + c * N + static_cast<size_t>(lane));
+            done = true;
+          }
+        }
+      *best = found;
+    }
+  }
+  // beta <- max over successors. Predecessor p < S/2 is reached by branch 0 into states
+  // 2p, 2p+1; p >= S/2 by branch 1 into 2p-S, 2p-S+1: pairwise maxima of adjacent lanes,
+  // compacted.
+  HWY_INLINE void backward(const V* g0, const V* g1, bool renorm, V* b) const {
+    V w0[C], w1[C], nb[C];
     for (size_t c = 0; c < C; ++c) {
       w0[c] = hn::Sub(b[c], g0[c]);
       w1[c] = hn::Sub(b[c], g1[c]);
     }
-    // Predecessor p < S/2 is reached by branch 0 into states 2p, 2p+1; p >= S/2 by
-    // branch 1 into 2p-S, 2p-S+1: pairwise maxima of adjacent lanes, compacted.
-    V nb[C];
     if constexpr (C == 1) {
       nb[0] = hn::Max(hn::ConcatEven(d, w1[0], w0[0]), hn::ConcatOdd(d, w1[0], w0[0]));
     } else {
       for (size_t q = 0; q < C / 2; ++q) {
-        nb[q] = hn::Max(hn::ConcatEven(d, w0[2 * q + 1], w0[2 * q]),
-                        hn::ConcatOdd(d, w0[2 * q + 1], w0[2 * q]));
-        nb[q + C / 2] = hn::Max(hn::ConcatEven(d, w1[2 * q + 1], w1[2 * q]),
-                                hn::ConcatOdd(d, w1[2 * q + 1], w1[2 * q]));
+        nb[q] = hn::Max(hn::ConcatEven(d, w0[2 * q + 1], w0[2 * q]), hn::ConcatOdd(d, w0[2 * q + 1], w0[2 * q]));
+        nb[q + C / 2] =
+            hn::Max(hn::ConcatEven(d, w1[2 * q + 1], w1[2 * q]), hn::ConcatOdd(d, w1[2 * q + 1], w1[2 * q]));
       }
     }
-    V high = hn::Zero(d);
-    if (done % kRenormInterval == 0 || k == 0) high = hn::Set(d, hn::GetLane(nb[0]));
+    const V high = renorm ? hn::Set(d, hn::GetLane(nb[0])) : hn::Zero(d);
     for (size_t c = 0; c < C; ++c) b[c] = hn::Sub(nb[c], high);
   }
-  for (size_t c = 0; c < C; ++c) hn::StoreU(b[c], d, beta_io + c * N);
+  HWY_INLINE void load(const float* p, V* v) const {
+    for (size_t c = 0; c < C; ++c) v[c] = hn::LoadU(d, p + c * N);
+  }
+  HWY_INLINE void store(const V* v, float* p) const {
+    for (size_t c = 0; c < C; ++c) hn::StoreU(v[c], d, p + c * N);
+  }
+};
+
+// Renormalisation points, as in the scalar reference: forward after steps k + 1 = multiple
+// of the interval and after the last; backward when the steps done (counted from the end,
+// including k) are a multiple, and at k = 0.
+HWY_INLINE bool forward_renorm(size_t k, size_t n) { return (k + 1) % kRenormInterval == 0 || k + 1 == n; }
+HWY_INLINE bool backward_renorm(size_t k, size_t n) { return (n - k) % kRenormInterval == 0 || k == 0; }
+
+template <int S>
+void MaxLogForwardS(const MaxLogTables& t, const float* alpha_in, const float* y,
+                    const uint8_t* erased, size_t n, float* alpha_out) {
+  const MaxLogSteps<S> m(t);
+  constexpr size_t C = MaxLogSteps<S>::C;
+  typename MaxLogSteps<S>::V a[C], g0[C], g1[C], w0[C], w1[C];
+  m.load(alpha_in, a);
+  for (size_t k = 0; k < n; ++k) {
+    m.gammas(y[k], erased != nullptr && erased[k] != 0, g0, g1);
+    m.into(a, g0, g1, w0, w1);
+    m.forward(w0, w1, forward_renorm(k, n), a);
+    m.store(a, alpha_out + k * S);
+  }
 }
-#endif
+
+template <int S, bool kSameBits>
+void MaxLogBackwardSB(const MaxLogTables& t, const float* alpha_in, const float* alpha,
+                      const float* y, const uint8_t* erased, size_t n, size_t n_llr,
+                      float* beta_io, float* raw, uint16_t* best_branch) {
+  const MaxLogSteps<S> m(t);
+  constexpr size_t C = MaxLogSteps<S>::C;
+  typename MaxLogSteps<S>::V b[C], a[C], g0[C], g1[C], w0[C], w1[C];
+  m.load(beta_io, b);
+  for (size_t k = n; k-- > 0;) {
+    m.gammas(y[k], erased != nullptr && erased[k] != 0, g0, g1);
+    if (k < n_llr) {
+      m.load(k == 0 ? alpha_in : alpha + (k - 1) * S, a);
+      m.into(a, g0, g1, w0, w1);
+      m.template llr<kSameBits>(w0, w1, b, raw + k, best_branch ? best_branch + k : nullptr);
+    }
+    m.backward(g0, g1, backward_renorm(k, n), b);
+  }
+  m.store(b, beta_io);
+}
+
+// The branches into a state carry the same NRZI bit (memory >= 2): a compile-time choice,
+// so that the per-step LLR has no test.
+inline bool same_nrzi_bits(const MaxLogTables& t) {
+  for (int s = 0; s < t.states; ++s)
+    if (t.nrzi0[s] != t.nrzi1[s]) return false;
+  return true;
+}
+
+template <int S>
+void MaxLogBackwardS(const MaxLogTables& t, const float* alpha_in, const float* alpha,
+                     const float* y, const uint8_t* erased, size_t n, size_t n_llr,
+                     float* beta_io, float* raw, uint16_t* best_branch) {
+  if (same_nrzi_bits(t)) return MaxLogBackwardSB<S, true>(t, alpha_in, alpha, y, erased, n, n_llr, beta_io, raw, best_branch);
+  MaxLogBackwardSB<S, false>(t, alpha_in, alpha, y, erased, n, n_llr, beta_io, raw, best_branch);
+}
+
+// maxlog_forward(emit) then maxlog_backward(total, emit), scheduled so that two independent
+// recursions are always in flight (each alone waits on its own latency): while the forward
+// walks the block's first half, the backward warms up and walks the second half, keeping
+// its metrics; then the forward walks the second half and writes those LLRs (its own alpha
+// with the kept beta) while the backward walks the first half and writes theirs. Every
+// value is made by the same operations as in the two kernels, so the results are the same
+// bits.
+template <int S, bool kSameBits>
+void MaxLogForwardBackwardSB(const MaxLogTables& t, const float* alpha_in, const float* y,
+                             const uint8_t* erased, size_t emit, size_t total, float* alpha_out,
+                             float* beta_io, float* beta_kept, float* raw, uint16_t* best_branch) {
+  const MaxLogSteps<S> m(t);
+  constexpr size_t C = MaxLogSteps<S>::C;
+  using V = typename MaxLogSteps<S>::V;
+  auto er = [&](size_t k) { return erased != nullptr && erased[k] != 0; };
+  const size_t h = emit / 2;  // forward first on [0, h), backward first on [h, total)
+  V a[C], b[C], fg0[C], fg1[C], fw0[C], fw1[C], bg0[C], bg1[C], bw0[C], bw1[C], kept[C];
+  m.load(alpha_in, a);
+  m.load(beta_io, b);
+  // One backward step k of the first phase (no LLR; beta kept where the forward needs it).
+  auto backward_first = [&](size_t k) {
+    m.gammas(y[k], er(k), bg0, bg1);
+    if (k >= h && k < emit) m.store(b, beta_kept + (k - h) * S);
+    m.backward(bg0, bg1, backward_renorm(k, total), b);
+  };
+  // The forward's path metrics into each state at step k < h are also what the backward's
+  // LLR at k adds its beta to (the same gather of alpha(k-1), the same gamma): kept, so the
+  // backward needs neither the gather nor the gamma again.
+  float* into_kept = beta_kept + (emit - h) * S;  // 2 x h x S floats after beta's
+  auto forward_plain = [&](size_t k) {
+    m.gammas(y[k], er(k), fg0, fg1);
+    m.into(a, fg0, fg1, fw0, fw1);
+    m.store(fw0, into_kept + (2 * k) * S);
+    m.store(fw1, into_kept + (2 * k + 1) * S);
+    m.forward(fw0, fw1, forward_renorm(k, emit), a);
+    m.store(a, alpha_out + k * S);
+  };
+  // Phase 1: the backward from the end down to h (its extra steps first), the forward
+  // over [0, h) beside its last h steps.
+  size_t kb = total;
+  while (kb - h > h) backward_first(--kb);
+  for (size_t kf = 0; kf < h; ++kf) {
+    forward_plain(kf);
+    backward_first(--kb);
+  }
+  // Phase 2: the forward over [h, emit) with LLRs, the backward over [0, h) with LLRs.
+  for (size_t kf = h; kf < emit; ++kf) {
+    m.gammas(y[kf], er(kf), fg0, fg1);
+    m.into(a, fg0, fg1, fw0, fw1);
+    m.load(beta_kept + (kf - h) * S, kept);
+    m.template llr<kSameBits>(fw0, fw1, kept, raw + kf, best_branch ? best_branch + kf : nullptr);
+    m.forward(fw0, fw1, forward_renorm(kf, emit), a);
+    m.store(a, alpha_out + kf * S);
+    if (kb > 0) {
+      const size_t k = --kb;
+      m.gammas(y[k], er(k), bg0, bg1);
+      m.load(into_kept + (2 * k) * S, bw0);
+      m.load(into_kept + (2 * k + 1) * S, bw1);
+      m.template llr<kSameBits>(bw0, bw1, b, raw + k, best_branch ? best_branch + k : nullptr);
+      m.backward(bg0, bg1, backward_renorm(k, total), b);
+    }
+  }
+  m.store(b, beta_io);
+}
+
+template <int S>
+void MaxLogForwardBackwardS(const MaxLogTables& t, const float* alpha_in, const float* y,
+                            const uint8_t* erased, size_t emit, size_t total, float* alpha_out,
+                            float* beta_io, float* beta_kept, float* raw, uint16_t* best_branch) {
+  if (same_nrzi_bits(t))
+    return MaxLogForwardBackwardSB<S, true>(t, alpha_in, y, erased, emit, total, alpha_out, beta_io, beta_kept, raw,
+                                            best_branch);
+  MaxLogForwardBackwardSB<S, false>(t, alpha_in, y, erased, emit, total, alpha_out, beta_io, beta_kept, raw,
+                                    best_branch);
+}
+#endif  // HWY_TARGET != HWY_SCALAR
 
 void MaxLogForward(const MaxLogTables& t, const float* alpha_in, const float* y,
                    const uint8_t* erased, size_t n, float* alpha_out) {
@@ -624,6 +736,24 @@ void MaxLogBackward(const MaxLogTables& t, const float* alpha_in, const float* a
       return MaxLogBackwardS<16>(t, alpha_in, alpha, y, erased, n, n_llr, beta, raw, best_branch);
     default:
       return MaxLogBackwardS<32>(t, alpha_in, alpha, y, erased, n, n_llr, beta, raw, best_branch);
+  }
+#endif
+}
+
+void MaxLogForwardBackward(const MaxLogTables& t, const float* alpha_in, const float* y,
+                           const uint8_t* erased, size_t emit, size_t total, float* alpha_out,
+                           float* beta, float* beta_kept, float* raw, uint16_t* best_branch) {
+#if HWY_TARGET == HWY_SCALAR
+  (void)beta_kept;
+  maxlog_forward_scalar(t, alpha_in, y, erased, emit, alpha_out);
+  maxlog_backward_scalar(t, alpha_in, alpha_out, y, erased, total, emit, beta, raw, best_branch);
+#else
+  switch (t.states) {
+    case 2: return MaxLogForwardBackwardS<2>(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept, raw, best_branch);
+    case 4: return MaxLogForwardBackwardS<4>(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept, raw, best_branch);
+    case 8: return MaxLogForwardBackwardS<8>(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept, raw, best_branch);
+    case 16: return MaxLogForwardBackwardS<16>(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept, raw, best_branch);
+    default: return MaxLogForwardBackwardS<32>(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept, raw, best_branch);
   }
 #endif
 }
@@ -690,6 +820,7 @@ namespace salvor::trellis {
 HWY_EXPORT(ViterbiEuclidean);
 HWY_EXPORT(MaxLogForward);
 HWY_EXPORT(MaxLogBackward);
+HWY_EXPORT(MaxLogForwardBackward);
 HWY_EXPORT(TargetName);
 HWY_EXPORT(Sova);
 HWY_EXPORT(ViterbiPredictive);
@@ -714,6 +845,13 @@ void viterbi_euclidean_simd(const EuclideanAcs& t, float* pm, size_t phase, cons
 void maxlog_forward_simd(const MaxLogTables& t, const float* alpha_in, const float* y,
                          const uint8_t* erased, size_t n, float* alpha_out) {
   HWY_DYNAMIC_DISPATCH(MaxLogForward)(t, alpha_in, y, erased, n, alpha_out);
+}
+
+void maxlog_forward_backward_simd(const MaxLogTables& t, const float* alpha_in, const float* y,
+                                  const uint8_t* erased, size_t emit, size_t total, float* alpha_out,
+                                  float* beta, float* beta_kept, float* raw, uint16_t* best_branch) {
+  HWY_DYNAMIC_DISPATCH(MaxLogForwardBackward)(t, alpha_in, y, erased, emit, total, alpha_out, beta, beta_kept,
+                                              raw, best_branch);
 }
 
 void maxlog_backward_simd(const MaxLogTables& t, const float* alpha_in, const float* alpha,

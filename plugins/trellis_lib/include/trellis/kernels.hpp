@@ -192,6 +192,15 @@ void maxlog_backward_scalar(const MaxLogTables& t, const float* alpha_in, const 
 void maxlog_backward_simd(const MaxLogTables& t, const float* alpha_in, const float* alpha,
                           const float* y, const uint8_t* erased, size_t n, size_t n_llr,
                           float* beta, float* raw, uint16_t* best_branch);
+//  forward_backward: maxlog_forward over the first `emit` steps into alpha_out, then
+//            maxlog_backward over all `total` >= emit steps with LLRs for k < emit, the
+//            same bits, but scheduled as two recursions side by side (the forward on the
+//            block's first half while the backward warms up and walks the second half, then
+//            each on the other half, writing its LLRs). beta_kept: scratch of
+//            (emit - emit / 2 + 2 * (emit / 2)) x states floats.
+void maxlog_forward_backward_simd(const MaxLogTables& t, const float* alpha_in, const float* y,
+                                  const uint8_t* erased, size_t emit, size_t total, float* alpha_out,
+                                  float* beta, float* beta_kept, float* raw, uint16_t* best_branch);
 
 // Hagenauer-Hoeher SOVA update along a traced survivor (steps in order, oldest first).
 // For every merge t < last with a finite delta[t] (+inf: the merge cannot matter, skip):

@@ -78,6 +78,7 @@ class MaxLogMap {
   std::vector<float> alpha_start_;  // forward metrics before the first buffered sample
   std::vector<float> alpha_;        // [t * S + s] after step t of the block
   std::vector<float> beta_;
+  std::vector<float> beta_kept_;    // backward metrics of the block's second half (forward_backward kernel)
   std::vector<float> raw_;          // unscaled LLR differences of the block
   std::vector<uint16_t> best_branch_;  // j * S + s of the best branch per step
   std::vector<float> y_lin_;        // the buffered samples in step order
