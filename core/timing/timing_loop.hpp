@@ -166,6 +166,7 @@ class TimingLoop {
   double data_slope_ = 0;
 
   // input history: a ring indexed by absolute input index (power-of-two size: index & mask)
+  static constexpr size_t kInputBlock = 64;  // input samples taken per turn of process()
   std::vector<double> hist_;
   int64_t hist_mask_ = 0;
   int64_t newest_ = -1;  // absolute index of the newest input sample
