@@ -12,7 +12,7 @@ namespace salvor::equalize {
 
 namespace {
 
-using detail::kMaxTargetTaps;
+constexpr size_t kMaxTargetTaps = 6;  // as SALVOR_MAX_TARGET_TAPS in detect/salvor_detector.h
 constexpr double kNlmsRegularization = 1e-9;  // keeps NLMS finite on an all-zero window
 
 std::string num(double v) {

@@ -148,26 +148,6 @@ size_t train_in_registers(LmsKernelState& s, const float* in, const int8_t* leve
   size_t counted = 0;
   size_t produced = 0;
 
-  // d_j = sum_q f_q a_(j-q) by table: entry p holds the sum for the levels a_(j-q) = +1
-  // where bit q of p is set, -1 elsewhere, added in the reference's order of q (the same
-  // bits as its loop). `pattern` and `known_run` (consecutive known levels up to the
-  // newest output, at most target_len) roll with the outputs; rebuilt here from the level
-  // line, which holds them, so nothing extra is carried between calls.
-  double desired_of[1 << kMaxTargetTaps];
-  const uint32_t pattern_mask = (1u << target_len) - 1;
-  for (uint32_t p = 0; p <= pattern_mask; ++p) {
-    double v = 0.0;
-    for (size_t q = 0; q < target_len; ++q) v += target[q] * (((p >> q) & 1u) ? 1.0 : -1.0);
-    desired_of[p] = v;
-  }
-  uint32_t pattern = 0;
-  size_t known_run = 0;
-  if (n_in > delay) {  // the newest output so far: j = n_in - 1 - delay, at slot back(slot, 1 + delay)
-    const int8_t* lj = level + back(back(slot, 1, ring), delay, ring) + ring;
-    for (size_t q = 0; q < target_len && lj[-static_cast<ptrdiff_t>(q)] != 0; ++q) ++known_run;
-    for (size_t q = target_len; q-- > 0;) pattern = (pattern << 1) | (lj[-static_cast<ptrdiff_t>(q)] > 0 ? 1u : 0u);
-  }
-
   V w[K], umask[K], wmask[K], u1[K], u2[K];
   // The pending updates' windows end one and two samples before the next sample (their
   // samples are still in the line; with fewer outputs so far their mu is 0).
@@ -208,11 +188,6 @@ size_t train_in_registers(LmsKernelState& s, const float* in, const int8_t* leve
       if (bad[here]) last_bad_plus1 = m + 1;
       if (m < delay) continue;
       const uint64_t j = m - delay;
-      {
-        const int8_t a = level[back(here, delay, ring)];
-        pattern = ((pattern << 1) | (a > 0 ? 1u : 0u)) & pattern_mask;
-        known_run = a != 0 ? std::min(known_run + 1, target_len) : 0;
-      }
       const double* xw = x + back(here, taps - 1, ring);
       V xv[K];
       for (size_t k = 0; k < K; ++k) xv[k] = hn::LoadU(d, xw + k * N);
@@ -239,8 +214,19 @@ size_t train_in_registers(LmsKernelState& s, const float* in, const int8_t* leve
       mu1 = 0.0;
       if (m + 1 < taps + last_bad_plus1) continue;  // window reaches the span start or a flagged sample
       // d_j = sum_m f_m a_{j-m}; every level must be known (reference: Equalizer::desired_at).
-      if (j + 1 < target_len || known_run < target_len) continue;
-      const double dj = desired_of[pattern];
+      if (j + 1 < target_len) continue;
+      const int8_t* lj = level + back(here, delay, ring) + ring;
+      double dj = 0.0;
+      bool known = true;
+      for (size_t q = 0; q < target_len; ++q) {
+        const int8_t a = lj[-static_cast<ptrdiff_t>(q)];
+        if (a == 0) {
+          known = false;
+          break;
+        }
+        dj += target[q] * a;
+      }
+      if (!known) continue;
       const double e = dj - y;
       const double e2 = e * e;
       span_sum += e2;

@@ -38,9 +38,6 @@ struct LmsKernelState {
   size_t span_count = 0, total_count = 0;
 };
 
-// Longest target (as SALVOR_MAX_TARGET_TAPS in detect/salvor_detector.h).
-constexpr size_t kMaxTargetTaps = 6;
-
 // Padding of the tap vector: a multiple of the widest vector of doubles (8 lanes).
 constexpr size_t kTapPadding = 8;
 
