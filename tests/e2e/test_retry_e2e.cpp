@@ -72,9 +72,11 @@ TEST(RetryE2E, RecoversMoreNeverWorseAndIsIdempotent) {
   ASSERT_FALSE(run_json["retry_history"].empty());
   EXPECT_EQ(run_json["retry_history"][0]["strategy"], "pdnp");
   const nlohmann::json final_map = read_json(dir / "damage-map.json");
-  for (const auto& s : final_map["sectors"])
-    if (s["lba"].get<uint64_t>() && !before.count(s["lba"].get<uint64_t>()) && after.count(s["lba"].get<uint64_t>()))
+  for (const auto& s : final_map["sectors"]) {
+    if (s["lba"].get<uint64_t>() && !before.count(s["lba"].get<uint64_t>()) && after.count(s["lba"].get<uint64_t>())) {
       EXPECT_EQ(s["attempt"].get<std::string>().rfind("retry:", 0), 0u) << s.dump();
+    }
+  }
 
   // Nothing new to try: the folder stays byte for byte the same.
   std::string digest = folder_digest(dir);
