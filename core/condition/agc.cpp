@@ -106,7 +106,7 @@ Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, 
     if constexpr (with_flags) update = update && in_flags[i] == 0;
     level_.step(tables_, update, x * x);
     if (update) gain_ = block_recursions::agc_gain(level_.acc, level_.weight, reference, max_gain);
-    out[i] = static_cast<float>(x * gain_);
+    out[i] = block_recursions::to_float_clamped(x * gain_);
     ++i;
   }
   acc_ = level_.acc;

@@ -78,7 +78,7 @@ Progress BaselineFilter::process(std::span<const float> in, std::span<float> out
     }
     // A block cut by the call's edges: its lanes one at a time, the same sums as the kernel's.
     block_x_[fill_] = in[i];
-    out[i] = static_cast<float>(block_recursions::biquad_lane(tables_, block_x_, fill_, s1_, s2_));
+    out[i] = block_recursions::to_float_clamped(block_recursions::biquad_lane(tables_, block_x_, fill_, s1_, s2_));
     ++i;
     if (++fill_ == kBlock) {
       block_recursions::biquad_next_state(tables_, block_x_, s1_, s2_);

@@ -21,6 +21,7 @@ void BiquadBlocks(const BiquadBlockTables& t, const float* x, float* y, size_t b
   const hn::CappedTag<double, kBlock> d;
   const hn::Rebind<float, decltype(d)> df;
   const size_t N = hn::Lanes(d);
+  const auto highest = hn::Set(d, 3.4028234663852886e38), lowest = hn::Neg(highest);  // float range
   double s1 = s1_io, s2 = s2_io;
   for (size_t b = 0; b < blocks; ++b) {
     alignas(64) double xd[kBlock];
@@ -31,7 +32,7 @@ void BiquadBlocks(const BiquadBlockTables& t, const float* x, float* y, size_t b
       for (size_t j = 1; j < kBlock; ++j) acc = hn::Add(acc, hn::Mul(hn::Load(d, t.h[j] + v), hn::Set(d, xd[j])));
       acc = hn::Add(acc, hn::Mul(hn::Load(d, t.p1 + v), vs1));
       acc = hn::Add(acc, hn::Mul(hn::Load(d, t.p2 + v), vs2));
-      hn::StoreU(hn::DemoteTo(df, acc), df, y + b * kBlock + v);
+      hn::StoreU(hn::DemoteTo(df, hn::Min(hn::Max(acc, lowest), highest)), df, y + b * kBlock + v);
     }
     biquad_next_state(t, xd, s1, s2);
   }
@@ -45,6 +46,7 @@ void AgcBlocks(const AverageBlockTables& t, const float* x, float* y, size_t blo
   const hn::Rebind<float, decltype(d)> df;
   const size_t N = hn::Lanes(d);
   const auto vref = hn::Set(d, reference), vmax = hn::Set(d, max_gain);
+  const auto highest = hn::Set(d, 3.4028234663852886e38), lowest = hn::Neg(highest);  // float range
   double acc = acc_io, weight = weight_io;
   for (size_t b = 0; b < blocks; ++b) {
     alignas(64) double xd[kBlock], vd[kBlock];
@@ -61,7 +63,8 @@ void AgcBlocks(const AverageBlockTables& t, const float* x, float* y, size_t blo
       const auto w = hn::Add(hn::Load(d, t.w_add + v), hn::Mul(hn::Load(d, t.r_next + v), vweight));
       const auto g = hn::Mul(vref, hn::Sqrt(hn::Div(w, a)));
       const auto gain = hn::IfThenElse(hn::Gt(a, hn::Zero(d)), hn::IfThenElse(hn::Lt(g, vmax), g, vmax), vmax);
-      hn::StoreU(hn::DemoteTo(df, hn::Mul(hn::Load(d, xd + v), gain)), df, y + b * kBlock + v);
+      const auto out = hn::Mul(hn::Load(d, xd + v), gain);
+      hn::StoreU(hn::DemoteTo(df, hn::Min(hn::Max(out, lowest), highest)), df, y + b * kBlock + v);
     }
     // The state after the block: lane 7's values, worked out again in scalar (the next
     // block then need not wait for a lane to be extracted).

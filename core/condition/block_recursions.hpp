@@ -19,6 +19,9 @@
 //
 // Against the plain recursion the results differ by rounding only (~1e-16 relative in the
 // double-precision state); tests/condition bound it.
+//
+// Outputs are clamped to the float range before the conversion, on every path: SIMD
+// targets differ in what they make of a double beyond it (infinity or the largest float).
 
 #include <cmath>
 #include <cstddef>
@@ -40,6 +43,11 @@ struct BiquadBlockTables {
   double q11 = 0, q12 = 0, q21 = 0, q22 = 0;
 };
 BiquadBlockTables biquad_block_tables(double b0, double b1, double b2, double a1, double a2);
+
+inline float to_float_clamped(double v) {
+  constexpr double kMax = 3.4028234663852886e38;  // FLT_MAX
+  return static_cast<float>(v < -kMax ? -kMax : v > kMax ? kMax : v);
+}
 
 // Output lane i of a block from its first i + 1 inputs (the scalar form of the kernel's lane).
 inline double biquad_lane(const BiquadBlockTables& t, const double* x, size_t i, double s1, double s2) {
@@ -66,8 +74,8 @@ inline void biquad_next_state(const BiquadBlockTables& t, const double* x, doubl
 // block's start and is left at the last block's end.
 void biquad_blocks(const BiquadBlockTables& t, const float* x, float* y, size_t blocks, double& s1, double& s2);
 
-// A one-pole average that only some samples update (the AGC's mean square, the thermal-
-// asperity and dropout detectors' signal levels), with its bias-correcting weight:
+// A one-pole average that only some samples update (the AGC's mean square), with its
+// bias-correcting weight:
 //   acc_k = r acc_(k-1) + alpha v_k,  weight_k = r weight_(k-1) + alpha   (updating samples).
 // Within a block whose samples so far all updated, lane i is
 //   acc_i = r^i (sum_{j<=i} alpha r^-j v_j) + r^(i+1) acc,  weight_i = alpha (1 + .. + r^i) + r^(i+1) weight,

@@ -545,11 +545,12 @@ class TrackFramer {
       // a servo wedge the PLL may still be settling), which frozen taps would not.
       auto& tmp = scratch_.tmp;
       tmp.resize(L + s_.equalizer_taps + 8);
-      // Every sector starts from the track's designed taps rather than from the sector
-      // before: a damaged sector cannot hand its misadapted taps on, and a sector decodes
-      // the same whatever was decoded before it (on the demo: 212 -> 200 failed sectors
-      // with viterbi, 109 -> 108 with pdnp; the clean bench scenario unchanged).
-      fine_eq_->reset();
+      // With a fixed target every sector starts from the taps designed for the track's
+      // channel model rather than from the sector before: a damaged sector cannot hand its
+      // misadapted taps on, and the equalizer's start does not depend on what was decoded
+      // before. A generalized target is designed from the first window it sees, so there
+      // the taps go on adapting from sector to sector and can leave a poor first design.
+      if (fine_spec_.kind == equalize::TargetKind::fixed) fine_eq_->reset();
       for (int ep = 0; ep < std::max(1, s_.training_epochs); ++ep) {
         fine_eq_->restart_span();
         Progress p = fine_eq_->train(x, lv, std::span<float>(tmp.data(), L), er);

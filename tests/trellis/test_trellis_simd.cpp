@@ -326,8 +326,7 @@ TEST(TrellisSimd, MaxLogSideBySideEqualsForwardThenBackward) {
       const MaxLogTables mt{S, tb.out0.data(), tb.out1.data(), tb.nrzi0.data(), tb.nrzi1.data()};
       for (int trial = 0; trial < 10; ++trial) {
         const size_t emit = trial == 0 ? 0 : trial == 1 ? 1 : rng() % 400;
-        const size_t total = emit + (trial % 3 == 0 ? 0 : rng() % 100);
-        if (total == 0) continue;
+        const size_t total = emit + (emit == 0 ? 1 + rng() % 100 : trial % 3 == 0 ? 0 : rng() % 100);
         const RandomBlock in = random_block(total, 1.0 + 2.0 * (trial % 3), rng);
         const uint8_t* er = trial % 4 == 3 ? nullptr : in.erased.data();
         std::uniform_real_distribution<float> u(-30.0f, 0.0f);
