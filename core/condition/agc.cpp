@@ -20,14 +20,13 @@ Agc::Agc(const AgcConfig& c) : cfg_(c) {
     throw_usage("condition.agc.max_gain", "must be > 0, got " + std::to_string(c.max_gain));
   if (!(c.initial_gain > 0.0) || !std::isfinite(c.initial_gain))
     throw_usage("condition.agc.initial_gain", "must be > 0, got " + std::to_string(c.initial_gain));
-  alpha_ = 1.0 - std::exp(-1.0 / (c.time_constant_bits * c.samples_per_bit));
-  retain_ = 1.0 - alpha_;  // a = retain a + alpha v: one multiply on the loop's critical path
-  tables_ = block_recursions::average_block_tables(alpha_, retain_);
+  const double alpha = 1.0 - std::exp(-1.0 / (c.time_constant_bits * c.samples_per_bit));
+  // a = retain a + alpha v: one multiply on the recursion's critical path
+  tables_ = block_recursions::average_block_tables(alpha, 1.0 - alpha);
   reset();
 }
 
 void Agc::reset() {
-  acc_ = weight_ = 0.0;
   gain_ = cfg_.initial_gain;
   frozen_ = cfg_.frozen;
   level_.reset();
@@ -46,8 +45,8 @@ Progress Agc::run_reference(std::span<const float> in, std::span<const uint8_t> 
   const size_t n = std::min(in.size(), out.size());
   // The state lives in locals for the loop: a flag byte store may alias any member, which
   // would otherwise force every member to be reloaded after it.
-  double acc = acc_, weight = weight_, gain = gain_;
-  const double alpha = alpha_, retain = retain_, max_gain = cfg_.max_gain, reference = cfg_.reference_rms;
+  double acc = level_.acc, weight = level_.weight, gain = gain_;
+  const double alpha = tables_.alpha, retain = tables_.retain, max_gain = cfg_.max_gain, reference = cfg_.reference_rms;
   const bool frozen = frozen_;
   for (size_t i = 0; i < n; ++i) {
     const double x = in[i];
@@ -64,8 +63,8 @@ Progress Agc::run_reference(std::span<const float> in, std::span<const uint8_t> 
     }
     out[i] = static_cast<float>(x * gain);
   }
-  acc_ = acc;
-  weight_ = weight;
+  level_.acc = acc;
+  level_.weight = weight;
   gain_ = gain;
   return {n, n};
 }
@@ -109,8 +108,6 @@ Progress Agc::run(std::span<const float> in, std::span<const uint8_t> in_flags, 
     out[i] = block_recursions::to_float_clamped(x * gain_);
     ++i;
   }
-  acc_ = level_.acc;
-  weight_ = level_.weight;
   return {n, n};
 }
 

@@ -48,7 +48,7 @@ class Agc {
   bool frozen() const { return frozen_; }
   double gain() const { return gain_; }
   // Bias-corrected running mean square of the input (0 before any update).
-  double input_mean_square() const { return weight_ > 0.0 ? acc_ / weight_ : 0.0; }
+  double input_mean_square() const { return level_.weight > 0.0 ? level_.acc / level_.weight : 0.0; }
 
  private:
   template <bool with_flags>
@@ -58,12 +58,10 @@ class Agc {
   Progress run(std::span<const float> in, std::span<const uint8_t> in_flags, std::span<float> out,
                std::span<uint8_t> out_flags);
   AgcConfig cfg_;
-  double alpha_;
-  double retain_ = 1.0;  // 1 - alpha_
-  double acc_ = 0.0, weight_ = 0.0, gain_ = 1.0;  // as after the newest sample
+  double gain_ = 1.0;  // as after the newest sample
   bool frozen_ = false;
-  // Block mode: the mean square as a block average (block_recursions.hpp), mirrored into
-  // acc_ and weight_ after each call.
+  // The bias-corrected mean square (acc / weight), a block average (block_recursions.hpp);
+  // the reference recursion updates its acc and weight directly.
   block_recursions::AverageBlockTables tables_;
   block_recursions::BlockAverage level_;
 };
