@@ -1,5 +1,6 @@
 // viterbi: maximum-likelihood sequence detection over the trellis of any target up to
-// memory 5 (32 states), Euclidean branch metrics, block traceback, SOVA reliabilities.
+// memory 5 (32 states), Euclidean branch metrics, block traceback, SOVA reliabilities;
+// at 8 and 16 states, overlapping segments decoded two at a time.
 // Forney, "The Viterbi algorithm", Proc. IEEE 61(3):268-278, 1973; Hagenauer & Hoeher,
 // GLOBECOM 1989. The algorithm lives in plugins/trellis_lib (SequenceDetector).
 #include "detect/salvor_detector.h"
@@ -17,6 +18,9 @@ const salvor_param_desc kParams[] = {
      "compute per-bit reliabilities along competing paths (soft-output Viterbi)"},
     {"reliability_window", SALVOR_PARAM_INT, 32, 1, SequenceDetector::kMaxTraceback, nullptr,
      "bits", "how far back a merge may lower reliabilities (at most traceback_depth)"},
+    {"segments", SALVOR_PARAM_BOOL, 1, 0, 1, nullptr, "",
+     "8 and 16 states: decode the stream in overlapping segments, two at a time (faster); "
+     "false: one trellis over the whole stream"},
 };
 
 struct Traits {
@@ -30,6 +34,7 @@ struct Traits {
     c.traceback_depth = static_cast<int>(v[0]);
     c.reliability = v[1] != 0.0;
     c.reliability_window = static_cast<int>(v[2]);
+    c.parallel_segments = v[3] != 0.0;
     c.noise_sigma = sigma;
     return Engine(target, c);
   }
@@ -44,7 +49,7 @@ const salvor_detector_api kApi = {
     "Viterbi sequence detector for any target up to 32 states, with soft-output (SOVA) reliabilities",
     "EPR4",
     0,  // reliabilities are SOVA estimates, not calibrated LLRs
-    2 * SequenceDetector::kMaxTraceback - 1,
+    SequenceDetector::kMaxHeldBack,
     kParams,
     sizeof(kParams) / sizeof(kParams[0]),
     &G::create,

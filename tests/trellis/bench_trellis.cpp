@@ -1,11 +1,13 @@
 // Throughput of the trellis detectors (bits per second on one core) for 4, 8, 16 and 32
-// states: viterbi (with and without SOVA reliabilities), npml, pdnp and max-log-MAP.
+// states: viterbi (with and without SOVA reliabilities), npml, pdnp and max-log-MAP; and
+// the fixed-point add-compare-select alone, one trellis at a time and two side by side.
 // Not a test: built as its own executable, not registered with CTest.
 #include <benchmark/benchmark.h>
 
 #include <random>
 
 #include "channel_sim.hpp"
+#include "trellis/kernels.hpp"
 #include "trellis/maxlogmap.hpp"
 #include "trellis/sequence_detector.hpp"
 
@@ -106,8 +108,38 @@ void BM_MaxLogMap(benchmark::State& state) {
 
 }  // namespace
 
+
+// The fixed-point add-compare-select kernel alone on quantized samples: `lanes` 1 runs one
+// trellis over the block, 2 runs the block's two halves side by side (the same number of
+// state updates). Items are state updates.
+void BM_FixedAcs(benchmark::State& state) {
+  const int S = static_cast<int>(state.range(0));
+  const bool dual = state.range(1) == 2;
+  const auto f = target_for_states(S);
+  const Trellis tr(f);
+  const FixedAcsTables t = make_fixed_acs(tr.memory(), tr.output_row(0), tr.output_row(1));
+  Input in = make_input(f, kBits);
+  std::vector<int16_t> yq(kBits);
+  quantize_samples_simd(t, in.y.data(), kBits, yq.data());
+  std::vector<uint16_t> pm(2 * S, 0);
+  std::vector<uint64_t> dec(kBits);
+  const size_t half = kBits / 2;
+  for (auto _ : state) {
+    if (dual) {
+      const FixedLane a{pm.data(), yq.data(), nullptr, dec.data(), nullptr};
+      const FixedLane b{pm.data() + S, yq.data() + half, nullptr, dec.data() + half, nullptr};
+      viterbi_fixed_dual_simd(t, 0, half, a, b);
+    } else {
+      viterbi_fixed_simd(t, pm.data(), 0, yq.data(), nullptr, kBits, dec.data(), nullptr);
+    }
+    benchmark::DoNotOptimize(dec.data());
+  }
+  state.SetItemsProcessed(static_cast<int64_t>(state.iterations()) * kBits * S);
+}
+
 BENCHMARK(BM_Viterbi)->ArgsProduct({{4, 8, 16, 32}, {0, 1}})->ArgNames({"states", "sova"});
 BENCHMARK(BM_Npml)->ArgsProduct({{4, 8, 16, 32}})->ArgNames({"states"});
 BENCHMARK(BM_Pdnp)->ArgsProduct({{4, 8, 16, 32}})->ArgNames({"states"});
 BENCHMARK(BM_MaxLogMap)->ArgsProduct({{4, 8, 16, 32}})->ArgNames({"states"});
+BENCHMARK(BM_FixedAcs)->ArgsProduct({{8, 16}, {1, 2}})->ArgNames({"states", "lanes"});
 BENCHMARK_MAIN();

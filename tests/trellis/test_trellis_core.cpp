@@ -499,6 +499,82 @@ TEST(TrellisFixedPoint, BitErrorsMatchFloatOnLongStreams) {
   }
 }
 
+// Segments (parallel_segments, the default at 8 and 16 states) against one trellis over
+// the whole span. Each segment starts fresh traceback_depth steps early and is traced
+// back from as far past its end, so the two may differ only where survivors had not
+// merged within that many steps: rare, and no more errors on average. Long noisy streams
+// at raw error rates around 1e-3 to 1e-2, with and without erasures, SOVA on and off. The
+// margins (10 % + 10 errors; 0.1 % of the bits differing) are ours.
+TEST(TrellisSegments, SameErrorRateAsOneTrellisOverTheSpan) {
+  std::mt19937_64 rng(41);
+  struct Case {
+    std::vector<double> f;
+    double sigma;
+  };
+  for (const Case& cs : {Case{kEPR4, 0.62}, Case{kE2PR4, 1.0}}) {
+    const size_t n = 120000;
+    const auto a = random_bits(n, rng);
+    const auto y = add_noise(pr_channel(levels_from_nrzi(a), cs.f), cs.sigma, rng);
+    std::vector<uint8_t> erased(n, 0);
+    for (auto& e : erased) e = rng() % 100 == 0;
+    for (int variant = 0; variant < 3; ++variant) {
+      SequenceDetectorConfig c;
+      c.reliability = variant == 2;
+      c.traceback_depth = variant == 1 ? 40 : 64;  // 40: W rounds up to the phase period
+      c.parallel_segments = false;
+      SequenceDetector one(cs.f, c);
+      c.parallel_segments = true;
+      SequenceDetector seg(cs.f, c);
+      EXPECT_NE(seg.describe().find("segments"), std::string::npos);
+      EXPECT_EQ(one.describe().find("segments"), std::string::npos);
+      const std::vector<uint8_t> no_erasures;
+      const auto& er = variant == 1 ? erased : no_erasures;
+      const Decided d1 = run_detector(one, y, er, 1000), ds = run_detector(seg, y, er, 777);
+      ASSERT_EQ(ds.bits.size(), n);
+      const size_t e1 = count_errors(a, d1.bits, 16, 0).errors;
+      const size_t es = count_errors(a, ds.bits, 16, 0).errors;
+      size_t differ = 0;
+      for (size_t k = 0; k < n; ++k) differ += d1.bits[k] != ds.bits[k];
+      std::printf("  %zu states, variant %d: one trellis %zu, segments %zu bit errors in %zu; %zu bits differ\n",
+                  size_t{1} << (cs.f.size() - 1), variant, e1, es, n, differ);
+      EXPECT_GT(e1, 100u) << "the channel must be noisy enough to count errors";
+      EXPECT_LE(static_cast<double>(es), 1.1 * static_cast<double>(e1) + 10.0) << "one " << e1 << " segments " << es;
+      EXPECT_LE(differ, n / 1000);
+      if (c.reliability) {  // the reliabilities still order the errors: errors sit at low |LLR|
+        double err_mag = 0.0, all_mag = 0.0;
+        for (size_t k = 0; k < n; ++k) {
+          all_mag += std::abs(ds.llr[k]);
+          if (ds.bits[k] != a[k]) err_mag += std::abs(ds.llr[k]);
+        }
+        EXPECT_LT(err_mag / static_cast<double>(es), 0.5 * all_mag / static_cast<double>(n));
+      }
+    }
+  }
+}
+
+// Spans shorter than what one pass needs never leave the single trellis: exactly the bits
+// and LLRs of one trellis over the span (and so maximum likelihood, as the exhaustive
+// tests above check), whatever the chunking. With a known sigma, so that the LLR scale
+// does not depend on when bits are released (an estimated one grows with each release).
+TEST(TrellisSegments, ShortSpansAreOneTrellisExactly) {
+  std::mt19937_64 rng(43);
+  for (const auto& f : {kEPR4, kE2PR4}) {
+    const size_t n = 3 * SequenceDetector::kSegmentHalf - 1;
+    const auto a = random_bits(n, rng);
+    const auto y = add_noise(pr_channel(levels_from_nrzi(a), f), 0.8, rng);
+    SequenceDetectorConfig c;
+    c.noise_sigma = 0.8;
+    c.parallel_segments = false;
+    SequenceDetector one(f, c);
+    c.parallel_segments = true;
+    SequenceDetector seg(f, c);
+    const Decided d1 = run_detector(one, y, {}, 0), ds = run_detector(seg, y, {}, 100);
+    EXPECT_EQ(d1.bits, ds.bits);
+    EXPECT_EQ(d1.llr, ds.llr);
+    EXPECT_EQ(seg.max_held_back(), SequenceDetector::kMaxHeldBack);
+  }
+}
+
 TEST(TrellisMaxLogMap, MemorylessTargetGivesTwoYOverSigmaSquared) {
   std::mt19937_64 rng(9);
   const double sigma = 0.8;

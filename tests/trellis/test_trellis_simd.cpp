@@ -60,6 +60,13 @@ struct RandomBlock {
   std::vector<uint8_t> erased;
 };
 
+// The largest noiseless output of a target: the sum of its taps' magnitudes.
+double largest_output(const std::vector<double>& f) {
+  double sum = 0.0;
+  for (double v : f) sum += std::abs(v);
+  return sum;
+}
+
 RandomBlock random_block(size_t n, double scale, std::mt19937_64& rng) {
   std::normal_distribution<float> g(0.0f, static_cast<float>(scale));
   RandomBlock b;
@@ -138,8 +145,7 @@ TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
     const Trellis tr(f);
     const int S = tr.states(), m = tr.memory();
     const FixedAcsTables t = make_fixed_acs(m, tr.output_row(0), tr.output_row(1));
-    double largest = 0.0;
-    for (double v : f) largest += std::abs(v);
+    const double largest = largest_output(f);
     for (int trial = 0; trial < 8; ++trial) {
       const size_t n = 1 + rng() % 900;
       // Up to 2.5 times the largest output: some samples hit the clamp.
@@ -180,9 +186,77 @@ TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
   });
 }
 
+// The two-trellis fixed-point kernel: each lane bit-identical to its own scalar run, for
+// every state count (8 and 16 states run side by side in one vector, the others fall back
+// to two single runs), random starting metrics and samples per lane, erasures in either
+// lane or both, deltas on and off, each block split into two calls at a random step.
+TEST(TrellisSimd, DualFixedPointKernelEqualsTwoScalarRuns) {
+  for_each_simd_target([&] {
+  std::mt19937_64 rng(606);
+  for (const auto& f : kTargets) {
+    const Trellis tr(f);
+    const int S = tr.states(), m = tr.memory();
+    const FixedAcsTables t = make_fixed_acs(m, tr.output_row(0), tr.output_row(1));
+    const double largest = largest_output(f);
+    for (int trial = 0; trial < 8; ++trial) {
+      const size_t n = 1 + rng() % 700;
+      struct Lane {
+        RandomBlock in;
+        std::vector<int16_t> yq;
+        std::vector<uint16_t> pm_ref, pm;
+        std::vector<uint64_t> dec_ref, dec;
+        std::vector<uint16_t> dl_ref, dl;
+        bool erasures = false;
+      } lanes[2];
+      const bool with_delta = trial % 2 == 0;
+      for (int j = 0; j < 2; ++j) {
+        Lane& L = lanes[j];
+        L.in = random_block(n, largest * (0.3 + 0.3 * ((trial + j) % 4)), rng);
+        L.yq.resize(n);
+        quantize_samples_scalar(t, L.in.y.data(), n, L.yq.data());
+        L.pm_ref.resize(S);
+        for (auto& v : L.pm_ref) v = static_cast<uint16_t>(rng() % 20000);
+        L.pm = L.pm_ref;
+        L.dec_ref.assign(n, 7);
+        L.dec.assign(n, 9);
+        L.dl_ref.assign(with_delta ? n * S : 0, 1);
+        L.dl.assign(L.dl_ref.size(), 2);
+        L.erasures = ((trial >> j) & 1) != 0 || trial == 6;  // none, A, B or both
+      }
+      const size_t step0 = fixed_dual_period(m) * (rng() % 50) + rng() % fixed_dual_period(m);
+      auto lane = [&](Lane& L, bool ref, size_t from) {
+        FixedLane x;
+        x.pm = ref ? L.pm_ref.data() : L.pm.data();
+        x.yq = L.yq.data() + from;
+        x.erased = L.erasures ? L.in.erased.data() + from : nullptr;
+        x.decisions = (ref ? L.dec_ref.data() : L.dec.data()) + from;
+        x.delta = with_delta ? (ref ? L.dl_ref.data() : L.dl.data()) + from * S : nullptr;
+        return x;
+      };
+      viterbi_fixed_dual_scalar(t, step0, n, lane(lanes[0], true, 0), lane(lanes[1], true, 0));
+      const size_t cut = rng() % (n + 1);
+      viterbi_fixed_dual_simd(t, step0, cut, lane(lanes[0], false, 0), lane(lanes[1], false, 0));
+      viterbi_fixed_dual_simd(t, step0 + cut, n - cut, lane(lanes[0], false, cut),
+                              lane(lanes[1], false, cut));
+      for (int j = 0; j < 2; ++j) {
+        const Lane& L = lanes[j];
+        EXPECT_TRUE(same_bytes(L.pm_ref, L.pm)) << S << " states, trial " << trial << ", lane " << j;
+        EXPECT_TRUE(same_bytes(L.dec_ref, L.dec)) << S << " states, trial " << trial << ", lane " << j;
+        EXPECT_TRUE(same_bytes(L.dl_ref, L.dl)) << S << " states, trial " << trial << ", lane " << j;
+      }
+      // The two lanes really are independent runs (different samples, different words).
+      if (n > 50) {
+        EXPECT_FALSE(same_bytes(lanes[0].dec_ref, lanes[1].dec_ref));
+      }
+    }
+  }
+  });
+}
+
 // The traceback of bit tests and adds with carry follows the same survivor as the plain
 // state-by-state loop on state-ordered decisions (the reference), for every memory, from
-// a plain array and from a ring.
+// a plain array, from a ring, and as two chains cut at a step (right and wrong guesses of
+// the state there).
 TEST(TrellisTraceback, TraceLevelsFollowsTheSurvivor) {
   std::mt19937_64 rng(505);
   for (int m = 1; m <= 5; ++m) {
@@ -221,6 +295,21 @@ TEST(TrellisTraceback, TraceLevelsFollowsTheSurvivor) {
       for (size_t i = 0; i < n + m; ++i)
         ASSERT_EQ(static_cast<int>((bits_ring[i / 64] >> (i % 64)) & 1), level[i])
             << "ring: memory " << m << " trial " << trial << " head " << head << " bit " << i;
+      // Two chains cut at a random step, from the survivor's true state there and from a
+      // random guess: the same bits either way, and the guess reported as held or not.
+      if (n < 2) continue;
+      const size_t mid = 1 + rng() % (n - 1);
+      int true_mid = 0;
+      for (int i = 0; i < m; ++i) true_mid |= level[mid + i] << (m - 1 - i);
+      for (const int guess : {true_mid, static_cast<int>(rng() % S)}) {
+        std::vector<uint64_t> bits_split(bits.size(), 0x5555aaaa5555aaaaull);
+        EXPECT_EQ(trace_levels_split(words.data(), n, m, start, mid, guess, bits_split.data()),
+                  guess == true_mid);
+        for (size_t i = 0; i < n + m; ++i)
+          ASSERT_EQ(static_cast<int>((bits_split[i / 64] >> (i % 64)) & 1), level[i])
+              << "split: memory " << m << " trial " << trial << " mid " << mid << " guess " << guess
+              << " bit " << i;
+      }
     }
   }
 }

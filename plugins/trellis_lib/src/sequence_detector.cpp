@@ -70,8 +70,21 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
   histf_.assign(static_cast<size_t>(N_) * S, 0.0f);
   euclidean_ = config_.kind == MetricKind::euclidean;
   fixed_ = euclidean_ && config_.fixed_point;
+  segments_ = fixed_ && config_.parallel_segments && (S_ == 8 || S_ == 16);
+  if (segments_) {
+    const size_t period = fixed_dual_period(trellis_.memory());
+    lookahead_ = (static_cast<size_t>(config_.traceback_depth) + period - 1) / period * period;
+    window_ = 4 * kSegmentHalf;  // a segment, its look-ahead and the next one's first half
+    pm_next_.assign(S, 0);
+    next_dec_.assign(lookahead_, 0);
+    warm_dec_.assign(lookahead_, 0);
+    next_delta_.assign(config_.reliability ? lookahead_ * S : 0, 0);
+    warm_delta_.assign(next_delta_.size(), 0);
+  }
   decisions_.assign(fixed_ ? 0 : window_, 0);
-  trace_dec_.assign(window_, 0);
+  // Segments: room after the ring for a copy of the look-ahead that wraps to its start, so
+  // that a segment's traceback reads one contiguous run.
+  trace_dec_.assign(window_ + lookahead_, 0);
   delta_.assign(config_.reliability && !fixed_ ? window_ * S : 0, 0.0f);
   y_.assign(window_, 0.0f);
   if (fixed_) {
@@ -222,6 +235,10 @@ void SequenceDetector::steps_float(size_t slot, size_t n) {
 void SequenceDetector::steps_fixed(size_t slot, size_t n) {
   (config_.simd ? quantize_samples_simd : quantize_samples_scalar)(fixed_tables_, &y_[slot], n,
                                                                    &yq_[slot]);
+  acs_fixed(slot, n);
+}
+
+void SequenceDetector::acs_fixed(size_t slot, size_t n) {
   uint16_t* delta = config_.reliability ? &deltaq_[slot * S_] : nullptr;
   // Without an erased sample in the run the kernel skips the per-step test.
   const uint8_t* erased = &erased_[slot];
@@ -288,7 +305,15 @@ constexpr auto kSpreadBits = [] {
 
 void SequenceDetector::trace_back(size_t n, size_t emit, size_t path_steps) {
   const int m = trellis_.memory();
-  trace_levels_ring(trace_dec_.data(), window_, head_, n, m, best_state(), path_levels_.data());
+  if (segments_ && n == 2 * kSegmentHalf + lookahead_) {
+    // A segment: two chains, cut where the pass took its guess (see segment_pass).
+    if (head_ + n > window_)
+      std::copy_n(trace_dec_.data(), head_ + n - window_, trace_dec_.data() + window_);
+    trace_levels_split(trace_dec_.data() + head_, n, m, best_state(), kSegmentHalf + lookahead_,
+                       mid_guess_, path_levels_.data());
+  } else {
+    trace_levels_ring(trace_dec_.data(), window_, head_, n, m, best_state(), path_levels_.data());
+  }
   const uint8_t* level_bytes = reinterpret_cast<const uint8_t*>(path_levels_.data());
   uint8_t* nrzi = path_bit_.data() + kPathPad;
   // NRZI bits of the released steps, eight at a time: a_t = x_t xor x_(t-1), the level
@@ -510,6 +535,7 @@ Progress SequenceDetector::process(std::span<const float> samples,
   if (bits.size() != llr.size())
     throw_usage("process", "bit and llr buffers differ in length");
   refuse_unflagged_non_finite(samples, erasure);
+  if (segments_) return process_segments(samples, erasure, bits, llr);
   const size_t R = release_;
   Progress p;
   {
@@ -520,18 +546,7 @@ Progress SequenceDetector::process(std::span<const float> samples,
       size_t n = std::min({samples.size() - p.consumed, window_ - count_, window_ - slot});
       if (!room) n = std::min(n, window_ - 1 - count_);  // stop short of a release
       if (n == 0) break;
-      float* ring_y = &y_[slot];
-      uint8_t* ring_erased = &erased_[slot];
-      if (erasure.empty()) {
-        std::copy_n(samples.data() + p.consumed, n, ring_y);
-        std::fill_n(ring_erased, n, uint8_t{0});
-      } else {
-        for (size_t i = 0; i < n; ++i) {
-          const bool erased = erasure[p.consumed + i] != 0;
-          ring_y[i] = erased ? 0.0f : samples[p.consumed + i];
-          ring_erased[i] = erased ? 1 : 0;
-        }
-      }
+      store_run(slot, samples.data() + p.consumed, erasure.empty() ? nullptr : erasure.data() + p.consumed, n);
       if (fixed_)
         steps_fixed(slot, n);
       else
@@ -546,11 +561,126 @@ Progress SequenceDetector::process(std::span<const float> samples,
   return p;
 }
 
+void SequenceDetector::store_run(size_t slot, const float* samples, const uint8_t* erasure, size_t n) {
+  float* ring_y = &y_[slot];
+  uint8_t* ring_erased = &erased_[slot];
+  if (erasure == nullptr) {
+    std::copy_n(samples, n, ring_y);
+    std::fill_n(ring_erased, n, uint8_t{0});
+  } else {
+    for (size_t i = 0; i < n; ++i) {
+      const bool erased = erasure[i] != 0;
+      ring_y[i] = erased ? 0.0f : samples[i];
+      ring_erased[i] = erased ? 1 : 0;
+    }
+  }
+}
+
+size_t SequenceDetector::store_samples(std::span<const float> samples, std::span<const uint8_t> erasure,
+                                       size_t from) {
+  const size_t H = kSegmentHalf;
+  const size_t slot = (head_ + count_ + pending_) % window_;
+  // The span's first H steps at once; after them, up to the 2 H that make a pass.
+  const size_t room = count_ < H ? H - count_ : 2 * H - pending_;
+  const size_t n = std::min({samples.size() - from, room, window_ - slot});
+  store_run(slot, samples.data() + from, erasure.empty() ? nullptr : erasure.data() + from, n);
+  (config_.simd ? quantize_samples_simd : quantize_samples_scalar)(fixed_tables_, &y_[slot], n, &yq_[slot]);
+  if (count_ < H)
+    acs_fixed(slot, n);
+  else
+    pending_ += n;
+  return n;
+}
+
+Progress SequenceDetector::process_segments(std::span<const float> samples,
+                                            std::span<const uint8_t> erasure,
+                                            std::span<uint8_t> bits, std::span<float> llr) {
+  const size_t H = kSegmentHalf;
+  Progress p;
+  for (;;) {
+    if (count_ == H && pending_ == 2 * H) {
+      if (bits.size() - p.produced < 2 * H) break;  // no room for what the pass releases
+      segment_pass();
+      release(2 * H, bits.subspan(p.produced, 2 * H), llr.subspan(p.produced, 2 * H));
+      start_next_segment();
+      p.produced += 2 * H;
+      continue;
+    }
+    if (p.consumed == samples.size()) break;
+    p.consumed += store_samples(samples, erasure, p.consumed);
+  }
+  return p;
+}
+
+// Lane A continues the current segment (span steps s + H .. s + 2H + W, s its first
+// step); lane B starts the next at s + 2H - W with every state equally likely. Both have
+// H + W steps and the same phases (H and W are multiples of the period). Their decisions
+// go to the ring, except B's warm-up (discarded) and B's first W steps of its own
+// segment, whose slots hold A's look-ahead until the release: those wait in next_*.
+// The segment starts at slot 0 or 2H of the 4H ring, so the ring wraps, if at all, at A's
+// step H or at B's step W: both are cuts below.
+void SequenceDetector::segment_pass() {
+  const size_t H = kSegmentHalf, W = lookahead_, S = static_cast<size_t>(S_);
+  const size_t a0 = (head_ + H) % window_, b0 = (head_ + 2 * H - W) % window_;
+  std::fill(pm_next_.begin(), pm_next_.end(), uint16_t{0});
+  const bool rel = config_.reliability;
+  auto erased_or_null = [&](size_t slot, size_t n) -> const uint8_t* {
+    const uint8_t* e = &erased_[slot];
+    return std::memchr(e, 1, n) == nullptr ? nullptr : e;
+  };
+  // Steps [k, k + n) of the pass; B's decisions and deltas to `b_dec` / `b_delta` if given.
+  auto run = [&](size_t k, size_t n, uint64_t* b_dec, uint16_t* b_delta) {
+    if (n == 0) return;
+    const size_t sa = (a0 + k) % window_, sb = (b0 + k) % window_;
+    FixedLane a, b;
+    a.pm = pmq_.data();
+    a.yq = &yq_[sa];
+    a.erased = erased_or_null(sa, n);
+    a.decisions = &trace_dec_[sa];
+    a.delta = rel ? &deltaq_[sa * S] : nullptr;
+    b.pm = pm_next_.data();
+    b.yq = &yq_[sb];
+    b.erased = erased_or_null(sb, n);
+    b.decisions = b_dec ? b_dec : &trace_dec_[sb];
+    b.delta = rel ? (b_delta ? b_delta : &deltaq_[sb * S]) : nullptr;
+    (config_.simd ? viterbi_fixed_dual_simd : viterbi_fixed_dual_scalar)(fixed_tables_, span_steps_ + k, n, a, b);
+  };
+  run(0, W, warm_dec_.data(), rel ? warm_delta_.data() : nullptr);
+  // The best state H + W steps into the segment: the traceback's guess of the survivor
+  // there, which lets it run as two chains (trace_levels_split; exact either way).
+  mid_guess_ = best_state();
+  run(W, W, next_dec_.data(), rel ? next_delta_.data() : nullptr);
+  run(2 * W, H - 2 * W, nullptr, nullptr);
+  run(H, W, nullptr, nullptr);
+  // The ring now holds the current segment and its look-ahead, its metrics in pmq_.
+  span_steps_ += H + W;
+  count_ += H + W;
+  pending_ -= H + W;
+}
+
+void SequenceDetector::start_next_segment() {
+  const size_t H = kSegmentHalf, W = lookahead_, S = static_cast<size_t>(S_);
+  // count_ is W: the look-ahead's slots, which become the next segment's first steps.
+  std::copy_n(next_dec_.data(), W, &trace_dec_[head_]);
+  if (config_.reliability) std::copy_n(next_delta_.data(), W * S, &deltaq_[head_ * S]);
+  pmq_ = pm_next_;
+  count_ = H;
+  span_steps_ += H - W;
+  pending_ = 0;
+}
+
 size_t SequenceDetector::flush(std::span<uint8_t> bits, std::span<float> llr) {
-  const size_t n = count_;
+  const size_t n = count_ + pending_;
   if (bits.size() < n || llr.size() < n)
     throw_usage("flush", "output room " + std::to_string(std::min(bits.size(), llr.size())) +
                              " is less than the " + std::to_string(n) + " bits held back");
+  // Segments: the pending samples continue the current segment's trellis.
+  while (pending_ > 0) {
+    const size_t slot = (head_ + count_) % window_;
+    const size_t run = std::min(pending_, window_ - slot);
+    pending_ -= run;
+    acs_fixed(slot, run);
+  }
   if (n) release(n, bits, llr);
   clear_span();
   return n;
@@ -565,6 +695,7 @@ void SequenceDetector::clear_span() {
   decided_valid_ = 0;
   head_ = 0;
   count_ = 0;
+  pending_ = 0;
 }
 
 void SequenceDetector::reset() {
@@ -592,6 +723,7 @@ std::string SequenceDetector::describe() const {
         << " levels, predictor order " << N_; break;
   }
   o << "; " << trellis_.describe() << "; traceback " << config_.traceback_depth << " bits";
+  if (segments_) o << ", segments of " << 2 * kSegmentHalf << " steps two at a time";
   if (config_.reliability) o << ", SOVA window " << config_.reliability_window;
   if (config_.noise_sigma > 0.0) o << ", noise sigma " << config_.noise_sigma;
   else o << ", noise sigma estimated";

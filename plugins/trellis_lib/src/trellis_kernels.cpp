@@ -2,9 +2,11 @@
 // in trellis_kernels_simd.cpp must give exactly these results.
 #include <algorithm>
 #include <cmath>
+#include <initializer_list>
 #include <limits>
 #include <stdexcept>
 #include <string>
+#include <utility>
 
 #include "trellis/kernels.hpp"
 
@@ -251,6 +253,12 @@ FixedAcsTables make_fixed_acs(int memory, const double* out0, const double* out1
         t.trace_word[(static_cast<size_t>(p) * t.mask_bytes + b) * 256 + v] = repeated(word, S);
       }
   }
+  // The rows twice over, for the two-trellis kernel's vectors of 2 S lanes.
+  for (const auto& [single, twice] : {std::pair{&t.own_out, &t.own_out2}, std::pair{&t.partner_out, &t.partner_out2}}) {
+    twice->resize(2 * single->size());
+    for (int p = 0; p < m; ++p)
+      for (int i = 0; i < 2 * S; ++i) (*twice)[p * 2 * S + i] = (*single)[p * S + i % S];
+  }
   return t;
 }
 
@@ -297,6 +305,12 @@ void viterbi_fixed_scalar(const FixedAcsTables& t, uint16_t* pm, size_t step0,
     }
     decisions[k] = repeated(bits, S);
   }
+}
+
+void viterbi_fixed_dual_scalar(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
+                               const FixedLane& b) {
+  for (const FixedLane* l : {&a, &b})
+    viterbi_fixed_scalar(t, l->pm, step0, l->yq, l->erased, n, l->decisions, l->delta);
 }
 
 namespace {
@@ -361,6 +375,57 @@ void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size
 
 void trace_levels(const uint64_t* decisions, size_t n, int memory, int state, uint64_t* levels) {
   trace_levels_ring(decisions, n, 0, n, memory, state, levels);
+}
+
+bool trace_levels_split(const uint64_t* decisions, size_t n, int memory, int state, size_t mid,
+                        int mid_guess, uint64_t* levels) {
+  if (mid == 0 || mid >= n) {
+    trace_levels(decisions, n, memory, state, levels);
+    return true;
+  }
+  const size_t words = (n + static_cast<size_t>(memory) + 63) / 64;
+  const size_t stored = (n - 1) / 64 + 1;
+  for (size_t w = stored; w < words; ++w) levels[w] = 0;
+  const uint64_t low = (uint64_t{1} << memory) - 1;
+  uint64_t r1 = static_cast<uint64_t>(reverse_bits(state, memory));
+  uint64_t r2 = static_cast<uint64_t>(reverse_bits(mid_guess, memory));
+  // The two chains in one loop: each waits on its own bit test and add, so together they
+  // take the time of the longer one.
+  size_t t1 = n, t2 = mid;
+  while (t1 > mid && t2 > 0) {
+    r1 = trace_step(r1, decisions[--t1]);
+    if (t1 % 64 == 0) levels[t1 / 64] = r1;
+    r2 = trace_step(r2, decisions[--t2]);
+    if (t2 % 64 == 0) levels[t2 / 64] = r2;
+  }
+  while (t1 > mid) {
+    r1 = trace_step(r1, decisions[--t1]);
+    if (t1 % 64 == 0) levels[t1 / 64] = r1;
+  }
+  const bool guessed = (r1 & low) == static_cast<uint64_t>(reverse_bits(mid_guess, memory));
+  if (!guessed) {
+    // The guess was off the survivor: the first part again from the true state.
+    uint64_t r = r1;
+    trace_range(decisions, 0, mid, r, levels);
+  } else {
+    while (t2 > 0) {
+      r2 = trace_step(r2, decisions[--t2]);
+      if (t2 % 64 == 0) levels[t2 / 64] = r2;
+    }
+    // The word holding step mid: its steps below mid from the second chain, the rest
+    // (steps mid .. , r1's bits) from the first.
+    if (const size_t b = mid % 64; b != 0) {
+      uint64_t& w = levels[mid / 64];
+      w = (w & ((uint64_t{1} << b) - 1)) | (r1 << b);
+    }
+  }
+  const int fin = reverse_bits(state, memory);
+  for (int b = 0; b < memory; ++b) {
+    const size_t i = n + static_cast<size_t>(b);
+    const uint64_t bit = uint64_t{1} << (i % 64);
+    levels[i / 64] = ((fin >> b) & 1) ? (levels[i / 64] | bit) : (levels[i / 64] & ~bit);
+  }
+  return guessed;
 }
 
 TraceWordTable::TraceWordTable(int memory_) : memory(memory_) {

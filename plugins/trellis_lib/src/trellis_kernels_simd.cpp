@@ -9,6 +9,7 @@
 #include <hwy/highway.h>
 
 #include <cstring>
+#include <initializer_list>
 #include <utility>
 #include <limits>
 
@@ -151,6 +152,17 @@ HWY_INLINE hn::Vec<D> swap_lanes(D d, hn::Vec<D> v) {
   }
 }
 
+// The metrics of chunk c's butterfly partners at lane distance DIST: another chunk when
+// DIST spans whole vectors, else the chunk with its lanes swapped.
+template <size_t DIST, size_t N, class D, class V>
+HWY_INLINE V butterfly_partner(D d, const V* pm, size_t c) {
+  if constexpr (DIST >= N) {
+    return pm[c ^ (DIST / N)];
+  } else {
+    return swap_lanes<DIST>(d, pm[c]);
+  }
+}
+
 template <int S>
 struct FixedKernel {
   static constexpr int M = S == 2 ? 1 : S == 4 ? 2 : S == 8 ? 3 : S == 16 ? 4 : 5;
@@ -189,12 +201,7 @@ struct FixedKernel {
     V next[C];
     uint32_t bits = 0;
     for (size_t c = 0; c < C; ++c) {
-      V partner;
-      if constexpr (DIST >= N) {
-        partner = pm.v[c ^ (DIST / N)];
-      } else {
-        partner = swap_lanes<DIST>(d, pm.v[c]);
-      }
+      V partner = butterfly_partner<DIST, N>(d, pm.v, c);
       V own = pm.v[c];
       if (!erased) {
         // Samples and outputs are held times 64: the high half of e * e is e_q^2 >> 4.
@@ -294,6 +301,172 @@ struct FixedKernel {
   }
 };
 
+// Two trellises side by side (viterbi_fixed_dual in kernels.hpp): trellis A in lanes
+// [0, S) and B in lanes [S, 2S) of one 2S-lane vector where the machine has one that wide
+// (C = 1), else A in the first C/2 chunks and B in the rest. Every swap of the in-place
+// butterflies moves lanes by less than S, so it stays within one trellis, and the step is
+// the single kernel's, instruction for instruction, on twice the states.
+template <int S>
+struct DualFixedKernel {
+  static constexpr int M = S == 8 ? 3 : 4;
+  static constexpr int kBytes = (S + 7) / 8;
+  using D = hn::CappedTag<uint16_t, 2 * S>;
+  using DI = hn::RebindToSigned<D>;
+  using V = hn::Vec<D>;
+  static constexpr size_t N = hn::MaxLanes(D());
+  static constexpr size_t C = 2 * S / N;
+  static constexpr size_t L = fixed_dual_period(M);
+  static_assert(C == 1 || N <= static_cast<size_t>(S), "a chunk holds one trellis or both");
+  struct Metrics {
+    V v[C];
+  };
+  struct Tables {
+    const int16_t* own;       // [P * 2S + lane]: the single kernel's rows, twice
+    const int16_t* partner;
+    const uint64_t* trace_word;
+  };
+  struct Lanes {
+    const int16_t* yq[2];
+    const uint8_t* erased[2];
+    uint64_t* decisions[2];
+    uint16_t* delta[2];
+  };
+
+  // Per chunk: a vector of A's value in A's lanes and B's in B's.
+  template <class DV, typename T>
+  static HWY_INLINE hn::Vec<DV> pair(DV dv, size_t c, T a, T b) {
+    if constexpr (C == 1) {
+      const hn::Half<DV> dh;
+      return hn::Combine(dv, hn::Set(dh, b), hn::Set(dh, a));
+    } else {
+      return hn::Set(dv, c < C / 2 ? a : b);
+    }
+  }
+
+  // Every lane of trellis A gets A's minimum, every lane of B gets B's.
+  static HWY_INLINE void subtract_minima(D d, V* next) {
+    if constexpr (C == 1) {
+      V low = next[0];
+      if constexpr (S >= 16) low = hn::Min(low, swap_lanes<8>(d, low));
+      low = hn::Min(low, swap_lanes<4>(d, low));
+      low = hn::Min(low, swap_lanes<2>(d, low));
+      low = hn::Min(low, swap_lanes<1>(d, low));
+      next[0] = hn::Sub(next[0], low);
+    } else {
+      for (size_t half = 0; half < 2; ++half) {
+        V* v = next + half * (C / 2);
+        V low = v[0];
+        for (size_t c = 1; c < C / 2; ++c) low = hn::Min(low, v[c]);
+        low = hn::MinOfLanes(d, low);
+        for (size_t c = 0; c < C / 2; ++c) v[c] = hn::Sub(v[c], low);
+      }
+    }
+  }
+
+  template <int P, bool kDelta, bool kErased>
+  static HWY_INLINE void step(const Tables& t, Metrics& pm, const Lanes& l, size_t k, bool renorm) {
+    constexpr size_t DIST = size_t{1} << (M - 1 - P);
+    const D d;
+    const DI di;
+    V next[C];
+    uint32_t bits = 0;
+    for (size_t c = 0; c < C; ++c) {
+      V partner = butterfly_partner<DIST, N>(d, pm.v, c);
+      const auto yv = pair(di, c, l.yq[0][k], l.yq[1][k]);
+      const auto eo = hn::Sub(yv, hn::LoadU(di, t.own + P * 2 * S + c * N));
+      const auto ep = hn::Sub(yv, hn::LoadU(di, t.partner + P * 2 * S + c * N));
+      V bo = hn::BitCast(d, hn::MulHigh(eo, eo)), bp = hn::BitCast(d, hn::MulHigh(ep, ep));
+      if constexpr (kErased) {  // an erased step adds no branch metric
+        auto erased = [&](int j) { return l.erased[j] != nullptr && l.erased[j][k] != 0; };
+        const auto keep = pair(d, c, static_cast<uint16_t>(erased(0) ? 0 : 0xffff),
+                               static_cast<uint16_t>(erased(1) ? 0 : 0xffff));
+        bo = hn::And(bo, keep);
+        bp = hn::And(bp, keep);
+      }
+      const V own = hn::SaturatedAdd(pm.v[c], bo);
+      partner = hn::SaturatedAdd(partner, bp);
+      next[c] = hn::Min(own, partner);
+      bits |= mask_bits(d, hn::Eq(next[c], partner)) << (c * N);
+      if constexpr (kDelta) {
+        const V dv = hn::Sub(hn::Max(own, partner), next[c]);
+        if constexpr (C == 1) {
+          const hn::Half<D> dh;
+          hn::StoreU(hn::LowerHalf(dh, dv), dh, l.delta[0] + k * S);
+          hn::StoreU(hn::UpperHalf(dh, dv), dh, l.delta[1] + k * S);
+        } else {
+          hn::StoreU(dv, d, l.delta[c / (C / 2)] + k * S + (c % (C / 2)) * N);
+        }
+      }
+    }
+    if (renorm) subtract_minima(d, next);
+    for (size_t c = 0; c < C; ++c) pm.v[c] = next[c];
+    const uint64_t* lut = t.trace_word + static_cast<size_t>(P) * kBytes * 256;
+    for (int j = 0; j < 2; ++j) {
+      const uint32_t own_bits = bits >> (j * S);
+      uint64_t w = lut[own_bits & 0xff];
+      for (int b = 1; b < kBytes; ++b) w |= lut[b * 256 + ((own_bits >> (8 * b)) & 0xff)];
+      l.decisions[j][k] = w;
+    }
+  }
+
+  template <bool kDelta, bool kErased, size_t... Q>
+  static HWY_INLINE void period(const Tables& t, Metrics& pm, const Lanes& l, size_t k,
+                                std::index_sequence<Q...>) {
+    (step<static_cast<int>(Q % M), kDelta, kErased>(t, pm, l, k + Q, (Q + 1) % kRenormInterval == 0),
+     ...);
+  }
+
+  template <bool kDelta, bool kErased, size_t... P>
+  static HWY_INLINE void single(const Tables& t, Metrics& pm, const Lanes& l, size_t k, size_t step_index,
+                                std::index_sequence<P...>) {
+    const int phase = static_cast<int>(step_index % M);
+    ((phase == static_cast<int>(P)
+          ? step<static_cast<int>(P), kDelta, kErased>(t, pm, l, k, (step_index + 1) % kRenormInterval == 0)
+          : void()),
+     ...);
+  }
+
+  template <bool kDelta, bool kErased>
+  static void steps(const Tables& tables, Metrics& metrics, const Lanes& lanes, size_t step0, size_t n) {
+    const Tables t = tables;
+    const Lanes l = lanes;
+    Metrics pm = metrics;
+    constexpr auto phases = std::make_index_sequence<M>();
+    size_t k = 0;
+    for (; k < n && (step0 + k) % L != 0; ++k) single<kDelta, kErased>(t, pm, l, k, step0 + k, phases);
+    for (; k + L <= n; k += L) period<kDelta, kErased>(t, pm, l, k, std::make_index_sequence<L>());
+    for (; k < n; ++k) single<kDelta, kErased>(t, pm, l, k, step0 + k, phases);
+    metrics = pm;
+  }
+
+  static void run(const FixedAcsTables& tables, size_t step0, size_t n, const FixedLane& a,
+                  const FixedLane& b) {
+    const D d;
+    const Tables t{tables.own_out2.data(), tables.partner_out2.data(), tables.trace_word.data()};
+    const Lanes l{{a.yq, b.yq}, {a.erased, b.erased}, {a.decisions, b.decisions}, {a.delta, b.delta}};
+    const int p0 = static_cast<int>(step0 % M);
+    alignas(64) uint16_t lanes[2 * S];
+    const uint8_t* before = tables.lane_state.data() + ((p0 + M - 1) % M) * S;
+    for (int i = 0; i < S; ++i) {
+      lanes[i] = a.pm[before[i]];
+      lanes[S + i] = b.pm[before[i]];
+    }
+    Metrics pm;
+    for (size_t c = 0; c < C; ++c) pm.v[c] = hn::Load(d, lanes + c * N);
+    const bool delta = a.delta != nullptr, erased = a.erased != nullptr || b.erased != nullptr;
+    if (delta)
+      erased ? steps<true, true>(t, pm, l, step0, n) : steps<true, false>(t, pm, l, step0, n);
+    else
+      erased ? steps<false, true>(t, pm, l, step0, n) : steps<false, false>(t, pm, l, step0, n);
+    for (size_t c = 0; c < C; ++c) hn::Store(pm.v[c], d, lanes + c * N);
+    const uint8_t* after = tables.lane_state.data() + ((step0 + n + M - 1) % M) * S;
+    for (int i = 0; i < S; ++i) {
+      a.pm[after[i]] = lanes[i];
+      b.pm[after[i]] = lanes[S + i];
+    }
+  }
+};
+
 #endif  // HWY_TARGET != HWY_SCALAR
 
 void ViterbiFixed(const FixedAcsTables& t, uint16_t* pm, size_t step0, const int16_t* yq,
@@ -309,6 +482,15 @@ void ViterbiFixed(const FixedAcsTables& t, uint16_t* pm, size_t step0, const int
     default: return FixedKernel<32>::run(t, pm, step0, yq, erased, n, decisions, delta);
   }
 #endif
+}
+
+void ViterbiFixedDual(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
+                      const FixedLane& b) {
+#if HWY_TARGET != HWY_SCALAR
+  if (t.states == 8) return DualFixedKernel<8>::run(t, step0, n, a, b);
+  if (t.states == 16) return DualFixedKernel<16>::run(t, step0, n, a, b);
+#endif
+  for (const FixedLane* l : {&a, &b}) ViterbiFixed(t, l->pm, step0, l->yq, l->erased, n, l->decisions, l->delta);
 }
 
 void QuantizeSamples(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq) {
@@ -825,6 +1007,7 @@ HWY_EXPORT(TargetName);
 HWY_EXPORT(Sova);
 HWY_EXPORT(ViterbiPredictive);
 HWY_EXPORT(ViterbiFixed);
+HWY_EXPORT(ViterbiFixedDual);
 HWY_EXPORT(QuantizeSamples);
 
 void viterbi_predictive_simd(const PredictiveAcs& t, float* pm, float* hist, size_t phase,
@@ -864,6 +1047,11 @@ void maxlog_backward_simd(const MaxLogTables& t, const float* alpha_in, const fl
 void viterbi_fixed_simd(const FixedAcsTables& t, uint16_t* pm, size_t step0, const int16_t* yq,
                         const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
   HWY_DYNAMIC_DISPATCH(ViterbiFixed)(t, pm, step0, yq, erased, n, decisions, delta);
+}
+
+void viterbi_fixed_dual_simd(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
+                             const FixedLane& b) {
+  HWY_DYNAMIC_DISPATCH(ViterbiFixedDual)(t, step0, n, a, b);
 }
 
 void quantize_samples_simd(const FixedAcsTables& t, const float* y, size_t n, int16_t* yq) {

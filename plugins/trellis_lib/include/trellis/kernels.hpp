@@ -78,6 +78,7 @@ struct FixedAcsTables {
   // outputs of the branch from the lane's own predecessor and from its partner's.
   std::vector<uint8_t> lane_state;
   std::vector<int16_t> own_out, partner_out;
+  std::vector<int16_t> own_out2, partner_out2;  // [p * 2S + i] = [p * S + i % S]
   // Per phase p and byte b of the lane-ordered "partner chosen" mask: that byte's part
   // of the traceback word (branch bits in bit-reversed state order, repeated to 64 bits).
   std::vector<uint64_t> trace_word;  // [(p * bytes + b) * 256 + value]
@@ -108,6 +109,30 @@ void viterbi_fixed_simd(const FixedAcsTables& t, uint16_t* pm, size_t step0,
                         const int16_t* yq, const uint8_t* erased, size_t n,
                         uint64_t* decisions, uint16_t* delta);
 
+// Two independent runs of the fixed-point kernel side by side: for 8 and 16 states the
+// SIMD kernel holds both trellises in one vector of twice the width (on AVX-512, 16
+// states x 2 x uint16 = 512 bits), so one instruction stream does the work of two. Each
+// lane is exactly viterbi_fixed_* over its own metrics, samples, erasures, decisions and
+// deltas (`delta` set in both lanes or in neither); the scalar reference is two calls of
+// viterbi_fixed_scalar. Both lanes step through the same layout and renormalisation
+// phases: their span steps must agree modulo fixed_dual_period(memory), and `step0` is
+// either of them. Other state counts run the single kernel twice.
+struct FixedLane {
+  uint16_t* pm = nullptr;             // S metrics in state order, in/out
+  const int16_t* yq = nullptr;        // n quantized samples
+  const uint8_t* erased = nullptr;    // n flags or null
+  uint64_t* decisions = nullptr;      // n traceback words
+  uint16_t* delta = nullptr;          // n * S lane-ordered deltas, or null
+};
+// lcm(memory, kRenormInterval): the period of the layout and renormalisation phases.
+inline constexpr size_t fixed_dual_period(int memory) {
+  return memory == 3 ? 24 : memory == 5 ? 40 : kRenormInterval;
+}
+void viterbi_fixed_dual_scalar(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
+                               const FixedLane& b);
+void viterbi_fixed_dual_simd(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
+                             const FixedLane& b);
+
 // ---- Traceback -----------------------------------------------------------------------
 // Follows the survivor that ends in `state` after step n-1 back to step 0, given the
 // decision words of trace_levels' format (see above) for steps 0..n-1. Writes the levels
@@ -120,6 +145,14 @@ void trace_levels(const uint64_t* decisions, size_t n, int memory, int state, ui
 // The same with the words in a ring: step t's word at ring[(head + t) % ring_size].
 void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size_t n,
                        int memory, int state, uint64_t* levels);
+
+// The same trace as two chains side by side, exact whatever the guess: the steps from n-1
+// down to `mid` from `state`, and the steps below `mid` from `mid_guess`, a guess of the
+// survivor's state after step mid - 1 (for a Viterbi detector, the best state there).
+// Where the first chain arrives at another state, the part below `mid` is traced again
+// from it. Returns whether the guess held.
+bool trace_levels_split(const uint64_t* decisions, size_t n, int memory, int state, size_t mid,
+                        int mid_guess, uint64_t* levels);
 
 // State-ordered decision words (bit s = branch into state s) in trace_levels' format.
 struct TraceWordTable {
