@@ -495,9 +495,11 @@ void TimingLoop::produce_one(BitSample& out) {
       // enter_track(): a division costs several multiplies on this bit-by-bit path.
       const double g = data_gain_;
       const double u = q * inv_gain_;
-      // EPR4 levels 0, +-1/2, +-1 (nearest; clamped first so the integer cast is safe)
-      const double r = std::clamp(2 * u, -2.0, 2.0);
-      const double ud = double(int(r + (r >= 0 ? 0.5 : -0.5))) / 2;  // round half away, as std::round
+      // EPR4 levels 0, +-1/2, +-1: the nearest (ties away from zero, as std::round of 2u),
+      // by comparisons, which are shorter on the bit-to-bit path than conversions.
+      const double up = (u >= 0.25 ? 0.5 : 0.0) + (u >= 0.75 ? 0.5 : 0.0);
+      const double down = (u <= -0.25 ? 0.5 : 0.0) + (u <= -0.75 ? 0.5 : 0.0);
+      const double ud = up - down;
       const double d = g * ud;
       const double z = q * prev_dq_ - prev_q_ * d;
       e = std::clamp(z * inv_error_scale_, -0.5, 0.5);
