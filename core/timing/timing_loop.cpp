@@ -496,10 +496,11 @@ void TimingLoop::produce_one(BitSample& out) {
       const double g = data_gain_;
       const double u = q * inv_gain_;
       // EPR4 levels 0, +-1/2, +-1: the nearest (ties away from zero, as std::round of 2u),
-      // by comparisons, which are shorter on the bit-to-bit path than conversions.
-      const double up = (u >= 0.25 ? 0.5 : 0.0) + (u >= 0.75 ? 0.5 : 0.0);
-      const double down = (u <= -0.25 ? 0.5 : 0.0) + (u <= -0.75 ? 0.5 : 0.0);
-      const double ud = up - down;
+      // counted from comparisons into an integer: no branch (the data are random, so a
+      // branch on them would be mispredicted about every other bit).
+      const int level = int(u >= 0.25) + int(u >= 0.75) - int(u <= -0.25) - int(u <= -0.75);
+      static constexpr double kHalfLevels[5] = {-1.0, -0.5, 0.0, 0.5, 1.0};
+      const double ud = kHalfLevels[level + 2];
       const double d = g * ud;
       const double z = q * prev_dq_ - prev_q_ * d;
       e = std::clamp(z * inv_error_scale_, -0.5, 0.5);
