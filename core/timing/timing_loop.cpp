@@ -197,7 +197,11 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
   for (;;) {
     // Produce every bit whose four interpolation samples are present.
     while (p.produced < out.size() && floor_index(next_time_) + 2 <= newest_) {
-      produce_one(out[p.produced++]);
+      // The default 11-tap prefilter has its loops unrolled at compile time.
+      if (nt_ == 11)
+        produce_one<5>(out[p.produced++]);
+      else
+        produce_one<0>(out[p.produced++]);
     }
     if (p.produced == out.size() && floor_index(next_time_) + 2 <= newest_) break;
     if (p.consumed == in.size()) break;
@@ -403,6 +407,7 @@ void TimingLoop::enter_track(double t) {
   reacquiring_ = false;
 }
 
+template <size_t kHalfTaps>
 void TimingLoop::produce_one(BitSample& out) {
   const double spb = cfg_.samples_per_bit;
   const double t = next_time_;
@@ -412,7 +417,7 @@ void TimingLoop::produce_one(BitSample& out) {
   slide_detection_window(y);
 
   // prefilter (runs in every mode so that its delay line is full when tracking starts)
-  const size_t nt = nt_;
+  const size_t nt = kHalfTaps ? 2 * kHalfTaps + 1 : nt_;  // == nt_
   const double leaving = fir_line_[fir_pos_];  // y_{k-nt}, overwritten now
   fir_line_[fir_pos_] = y;
   fir_line_[fir_pos_ + nt] = y;
@@ -421,7 +426,7 @@ void TimingLoop::produce_one(BitSample& out) {
   // Symmetric taps: fold the line, f_i = y_{k-i} + y_{k-(nt-1-i)} (the tracking update's
   // gradient too), and take the part that does not wait for this bit's interpolation
   // first, since y_k is on the loop's bit-to-bit critical path.
-  const size_t half = nt / 2;
+  const size_t half = kHalfTaps ? kHalfTaps : nt / 2;
   double fold[32];
   for (size_t i = 1; i < half; ++i) fold[i] = line(i) + line(nt - 1 - i);
   fold[half] = line(half);

@@ -146,6 +146,8 @@ class TimingLoop {
   double signal_power() const { return sig_pow_; }
 
  private:
+  // kHalfTaps: prefilter_taps / 2 known at compile time (0: read from the configuration).
+  template <size_t kHalfTaps>
   void produce_one(BitSample& out);
   double interpolate(double t) const;
   double sample_at(int64_t index) const;
