@@ -292,7 +292,7 @@ class TrackFramer {
 
   void push_block(std::span<const timing::BitSample> bits, std::span<const uint8_t> flags) {
     for (size_t i = 0; i < bits.size(); ++i) {
-      RingEntry& e = ring_[count_ % ring_.size()];
+      RingEntry& e = at(count_);  // a mask, not a division per bit
       e = RingEntry{};
       e.value = bits[i].value;
       e.position = bits[i].position;
