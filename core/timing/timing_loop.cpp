@@ -216,8 +216,12 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
         if (!std::isfinite(x[i]))
           throw_input("timing loop", "non-finite sample at input index " + std::to_string(newest_ + 1 + int64_t(i)));
     }
+    // Into the ring in at most two contiguous runs (loops the compiler vectorises).
     double* h = hist_.data();
-    for (size_t i = 0; i < n; ++i) h[size_t((newest_ + 1 + int64_t(i)) & hist_mask_)] = x[i];
+    const size_t start = size_t((newest_ + 1) & hist_mask_);
+    const size_t first = std::min(n, hist_.size() - start);
+    for (size_t i = 0; i < first; ++i) h[start + i] = x[i];
+    for (size_t i = first; i < n; ++i) h[i - first] = x[i];
     newest_ += int64_t(n);
     p.consumed += n;
   }
