@@ -298,17 +298,20 @@ TEST(TrellisTraceback, TraceLevelsFollowsTheSurvivor) {
       // Two chains cut at a random step, from the survivor's true state there and from a
       // random guess: the same bits either way, and the guess reported as held or not.
       if (n < 2) continue;
-      const size_t mid = 1 + rng() % (n - 1);
-      int true_mid = 0;
-      for (int i = 0; i < m; ++i) true_mid |= level[mid + i] << (m - 1 - i);
-      for (const int guess : {true_mid, static_cast<int>(rng() % S)}) {
-        std::vector<uint64_t> bits_split(bits.size(), 0x5555aaaa5555aaaaull);
-        EXPECT_EQ(trace_levels_split(words.data(), n, m, start, mid, guess, bits_split.data()),
-                  guess == true_mid);
-        for (size_t i = 0; i < n + m; ++i)
-          ASSERT_EQ(static_cast<int>((bits_split[i / 64] >> (i % 64)) & 1), level[i])
-              << "split: memory " << m << " trial " << trial << " mid " << mid << " guess " << guess
-              << " bit " << i;
+      // A random cut, and one on a word boundary (where no word is shared by the chains).
+      const size_t cuts[2] = {1 + rng() % (n - 1), std::min<size_t>(n - 1, 64 * (1 + rng() % 4))};
+      for (const size_t mid : cuts) {
+        int true_mid = 0;
+        for (int i = 0; i < m; ++i) true_mid |= level[mid + i] << (m - 1 - i);
+        for (const int guess : {true_mid, static_cast<int>(rng() % S)}) {
+          std::vector<uint64_t> bits_split(bits.size(), 0x5555aaaa5555aaaaull);
+          EXPECT_EQ(trace_levels_split(words.data(), n, m, start, mid, guess, bits_split.data()),
+                    guess == true_mid);
+          for (size_t i = 0; i < n + m; ++i)
+            ASSERT_EQ(static_cast<int>((bits_split[i / 64] >> (i % 64)) & 1), level[i])
+                << "split: memory " << m << " trial " << trial << " mid " << mid << " guess " << guess
+                << " bit " << i;
+        }
       }
     }
   }

@@ -577,11 +577,14 @@ void SequenceDetector::store_run(size_t slot, const float* samples, const uint8_
 }
 
 size_t SequenceDetector::store_samples(std::span<const float> samples, std::span<const uint8_t> erasure,
-                                       size_t from) {
+                                       size_t from, bool room_for_pass) {
   const size_t H = kSegmentHalf;
   const size_t slot = (head_ + count_ + pending_) % window_;
-  // The span's first H steps at once; after them, up to the 2 H that make a pass.
-  const size_t room = count_ < H ? H - count_ : 2 * H - pending_;
+  // The span's first H steps at once; after them, up to the 2 H that make a pass, or one
+  // short of them while the output has no room for what the pass releases (so that at
+  // most 3 H - 1 are held back and the pass still comes at the same step).
+  const size_t room = count_ < H ? H - count_ : (room_for_pass ? 2 * H : 2 * H - 1) - pending_;
+  if (room == 0) return 0;
   const size_t n = std::min({samples.size() - from, room, window_ - slot});
   store_run(slot, samples.data() + from, erasure.empty() ? nullptr : erasure.data() + from, n);
   (config_.simd ? quantize_samples_simd : quantize_samples_scalar)(fixed_tables_, &y_[slot], n, &yq_[slot]);
@@ -607,12 +610,14 @@ Progress SequenceDetector::process_segments(std::span<const float> samples,
       continue;
     }
     if (p.consumed == samples.size()) break;
-    p.consumed += store_samples(samples, erasure, p.consumed);
+    const size_t stored = store_samples(samples, erasure, p.consumed, bits.size() - p.produced >= 2 * H);
+    if (stored == 0) break;  // held back to the limit: the caller must make output room
+    p.consumed += stored;
   }
   return p;
 }
 
-// Lane A continues the current segment (span steps s + H .. s + 2H + W, s its first
+// Lane A continues the current segment (span steps [s + H, s + 2H + W), s its first
 // step); lane B starts the next at s + 2H - W with every state equally likely. Both have
 // H + W steps and the same phases (H and W are multiples of the period). Their decisions
 // go to the ring, except B's warm-up (discarded) and B's first W steps of its own

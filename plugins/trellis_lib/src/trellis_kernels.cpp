@@ -307,8 +307,14 @@ void viterbi_fixed_scalar(const FixedAcsTables& t, uint16_t* pm, size_t step0,
   }
 }
 
+void check_dual_lanes(const FixedLane& a, const FixedLane& b) {
+  if ((a.delta == nullptr) != (b.delta == nullptr))
+    throw std::invalid_argument("viterbi_fixed_dual: delta must be given for both lanes or for neither");
+}
+
 void viterbi_fixed_dual_scalar(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
                                const FixedLane& b) {
+  check_dual_lanes(a, b);
   for (const FixedLane* l : {&a, &b})
     viterbi_fixed_scalar(t, l->pm, step0, l->yq, l->erased, n, l->decisions, l->delta);
 }

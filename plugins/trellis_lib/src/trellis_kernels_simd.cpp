@@ -1051,6 +1051,7 @@ void viterbi_fixed_simd(const FixedAcsTables& t, uint16_t* pm, size_t step0, con
 
 void viterbi_fixed_dual_simd(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
                              const FixedLane& b) {
+  check_dual_lanes(a, b);
   HWY_DYNAMIC_DISPATCH(ViterbiFixedDual)(t, step0, n, a, b);
 }
 

@@ -128,6 +128,8 @@ struct FixedLane {
 inline constexpr size_t fixed_dual_period(int memory) {
   return memory == 3 ? 24 : memory == 5 ? 40 : kRenormInterval;
 }
+// Throws std::invalid_argument unless delta is given for both lanes or for neither.
+void check_dual_lanes(const FixedLane& a, const FixedLane& b);
 void viterbi_fixed_dual_scalar(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,
                                const FixedLane& b);
 void viterbi_fixed_dual_simd(const FixedAcsTables& t, size_t step0, size_t n, const FixedLane& a,

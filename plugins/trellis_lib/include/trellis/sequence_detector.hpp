@@ -92,7 +92,10 @@ class SequenceDetector {
   static constexpr float kLlrCap = 60.0f;  // |LLR| saturation (no competitor seen)
   static constexpr int kMaxTraceback = 256;
   static constexpr size_t kWindow = 2 * kMaxTraceback;  // steps per traceback
-  static constexpr size_t kSegmentHalf = 528;  // H: a multiple of every fixed_dual_period <= 24
+  // H: a multiple of the phase periods of 8 and 16 states (24 and 8 steps), and at least
+  // twice the largest look-ahead W (kMaxTraceback rounded up to 24: 264).
+  static constexpr size_t kSegmentHalf = 528;
+  static_assert(kSegmentHalf % 24 == 0 && kSegmentHalf >= 2 * ((kMaxTraceback + 23) / 24 * 24));
   static constexpr size_t kMaxHeldBack = 3 * kSegmentHalf - 1;  // any configuration
 
   SequenceDetector(std::span<const double> target, const SequenceDetectorConfig& config);
@@ -127,7 +130,7 @@ class SequenceDetector {
   // Segments: stores samples (quantized) after the held ones; the first H steps of a span
   // go through the add-compare-select at once, later ones wait for the next pass.
   size_t store_samples(std::span<const float> samples, std::span<const uint8_t> erasure,
-                       size_t from);
+                       size_t from, bool room_for_pass);
   Progress process_segments(std::span<const float> samples, std::span<const uint8_t> erasure,
                             std::span<uint8_t> bits, std::span<float> llr);
   // With the current segment's first H steps done and 2 H samples pending: the rest of it
