@@ -18,7 +18,7 @@ const salvor_param_desc kParams[] = {
     {"predictor_order", SALVOR_PARAM_INT, 2, 0, 4, nullptr, "taps",
      "order of each pattern's noise prediction filter"},
     {"traceback_depth", SALVOR_PARAM_INT, 64, 8, SequenceDetector::kMaxTraceback, nullptr, "bits",
-     "survivor traceback depth; bits are released in blocks of this size"},
+     "survivor traceback depth: every released bit has at least this many steps of trellis after it"},
     {"reliability", SALVOR_PARAM_BOOL, 1, 0, 1, nullptr, "",
      "compute per-bit reliabilities along competing paths (soft-output Viterbi)"},
     {"reliability_window", SALVOR_PARAM_INT, 32, 1, SequenceDetector::kMaxTraceback, nullptr,

@@ -13,7 +13,7 @@ using salvor::trellis::SequenceDetector;
 
 const salvor_param_desc kParams[] = {
     {"traceback_depth", SALVOR_PARAM_INT, 64, 8, SequenceDetector::kMaxTraceback, nullptr, "bits",
-     "survivor traceback depth; bits are released in blocks of this size"},
+     "survivor traceback depth: every released bit has at least this many steps of trellis after it"},
     {"reliability", SALVOR_PARAM_BOOL, 1, 0, 1, nullptr, "",
      "compute per-bit reliabilities along competing paths (soft-output Viterbi)"},
     {"reliability_window", SALVOR_PARAM_INT, 32, 1, SequenceDetector::kMaxTraceback, nullptr,
@@ -45,7 +45,7 @@ const salvor_detector_api kApi = {
     SALVOR_DETECTOR_ABI_VERSION,
     sizeof(salvor_detector_api),
     "viterbi",
-    "1.0.0",
+    "1.1.0",  // 1.1: segments (the default) can change bits where survivors merge late
     "Viterbi sequence detector for any target up to 32 states, with soft-output (SOVA) reliabilities",
     "EPR4",
     0,  // reliabilities are SOVA estimates, not calibrated LLRs
