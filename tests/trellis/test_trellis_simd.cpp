@@ -77,6 +77,29 @@ RandomBlock random_block(size_t n, double scale, std::mt19937_64& rng) {
   return b;
 }
 
+// Runs `body(rng, target)` for every target of kTargets on every SIMD target, with a
+// fresh random generator per SIMD target, for the fixed-point kernel tests.
+struct FixedTarget {
+  int S = 0, m = 0;
+  FixedAcsTables tables;
+  double largest = 0.0;
+};
+template <class Body>
+void for_each_fixed_target(uint64_t seed, Body body) {
+  for_each_simd_target([&] {
+    std::mt19937_64 rng(seed);
+    for (const auto& f : kTargets) {
+      const Trellis tr(f);
+      FixedTarget ft;
+      ft.S = tr.states();
+      ft.m = tr.memory();
+      ft.tables = make_fixed_acs(ft.m, tr.output_row(0), tr.output_row(1));
+      ft.largest = largest_output(f);
+      body(rng, ft);
+    }
+  });
+}
+
 }  // namespace
 
 
@@ -139,17 +162,13 @@ TEST(TrellisSimd, ViterbiKernelEqualsScalarOnRandomInput) {
 // random span positions (layout and renormalisation phases), samples beyond the clamp,
 // erasures; the SIMD side runs each block in two calls cut at a random step.
 TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
-  for_each_simd_target([&] {
-  std::mt19937_64 rng(404);
-  for (const auto& f : kTargets) {
-    const Trellis tr(f);
-    const int S = tr.states(), m = tr.memory();
-    const FixedAcsTables t = make_fixed_acs(m, tr.output_row(0), tr.output_row(1));
-    const double largest = largest_output(f);
+  for_each_fixed_target(404, [&](std::mt19937_64& rng, const FixedTarget& ft) {
+    const int S = ft.S;
+    const FixedAcsTables& t = ft.tables;
     for (int trial = 0; trial < 8; ++trial) {
       const size_t n = 1 + rng() % 900;
       // Up to 2.5 times the largest output: some samples hit the clamp.
-      const RandomBlock in = random_block(n, largest * (0.3 + 0.3 * (trial % 4)), rng);
+      const RandomBlock in = random_block(n, ft.largest * (0.3 + 0.3 * (trial % 4)), rng);
       std::vector<int16_t> qa(n), qb(n, 99);
       quantize_samples_scalar(t, in.y.data(), n, qa.data());
       quantize_samples_simd(t, in.y.data(), n, qb.data());
@@ -182,7 +201,6 @@ TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
         EXPECT_NE(all, ~uint64_t{0});
       }
     }
-  }
   });
 }
 
@@ -191,13 +209,10 @@ TEST(TrellisSimd, FixedPointKernelEqualsScalarOnRandomInput) {
 // to two single runs), random starting metrics and samples per lane, erasures in either
 // lane or both, deltas on and off, each block split into two calls at a random step.
 TEST(TrellisSimd, DualFixedPointKernelEqualsTwoScalarRuns) {
-  for_each_simd_target([&] {
-  std::mt19937_64 rng(606);
-  for (const auto& f : kTargets) {
-    const Trellis tr(f);
-    const int S = tr.states(), m = tr.memory();
-    const FixedAcsTables t = make_fixed_acs(m, tr.output_row(0), tr.output_row(1));
-    const double largest = largest_output(f);
+  for_each_fixed_target(606, [&](std::mt19937_64& rng, const FixedTarget& ft) {
+    const int S = ft.S, m = ft.m;
+    const FixedAcsTables& t = ft.tables;
+    const double largest = ft.largest;
     for (int trial = 0; trial < 8; ++trial) {
       const size_t n = 1 + rng() % 700;
       struct Lane {
@@ -249,7 +264,6 @@ TEST(TrellisSimd, DualFixedPointKernelEqualsTwoScalarRuns) {
         EXPECT_FALSE(same_bytes(lanes[0].dec_ref, lanes[1].dec_ref));
       }
     }
-  }
   });
 }
 
