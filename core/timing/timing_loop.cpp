@@ -1,6 +1,7 @@
 #include "timing/timing_loop.hpp"
 
 #include <algorithm>
+#include <bit>
 #include <cmath>
 #include <complex>
 #include <cstdio>
@@ -107,6 +108,7 @@ void TimingLoop::set_track_scales() {
   inv_error_scale_ = 1.0 / (data_gain_ * data_gain_ * data_slope_);
   inv_lock_average_ = 1.0 / cfg_.lock_average_bits;
   inv_spb_ = 1.0 / cfg_.samples_per_bit;
+  rate_limit_ = 1.0 - 1.0 / (1.0 + cfg_.max_rate_offset);
 }
 
 void TimingLoop::reset() {
@@ -209,9 +211,11 @@ Progress TimingLoop::process(std::span<const float> in, std::span<BitSample> out
     // rather than one per turn; the bits come out the same, only sooner in the input.
     const size_t n = std::min(kInputBlock, in.size() - p.consumed);
     const float* x = in.data() + p.consumed;
-    bool finite = true;
-    for (size_t i = 0; i < n; ++i) finite &= std::fabs(x[i]) <= std::numeric_limits<float>::max();
-    if (!finite) {
+    // A float is not finite when its exponent bits are all set: an integer test on the bit
+    // patterns, which the compiler vectorises.
+    uint32_t non_finite = 0;
+    for (size_t i = 0; i < n; ++i) non_finite |= uint32_t((std::bit_cast<uint32_t>(x[i]) & 0x7f800000u) == 0x7f800000u);
+    if (non_finite) {
       for (size_t i = 0; i < n; ++i)
         if (!std::isfinite(x[i]))
           throw_input("timing loop", "non-finite sample at input index " + std::to_string(newest_ + 1 + int64_t(i)));
@@ -372,8 +376,7 @@ bool TimingLoop::zero_phase_start(double min_shift_bits) {
   const double step_old = next_time_ - prev_time_;  // next_time_ is still the current instant
   pending_shift_ = -rho * (2 / kPi) * step_old / (1 + eps);
   const double r_new = 1.0 - (1.0 - rate_int_) / (1.0 + eps);
-  const double rmax = 1.0 - 1.0 / (1.0 + cfg_.max_rate_offset);
-  rate_int_ = std::clamp(r_new, -rmax, rmax);
+  rate_int_ = std::clamp(r_new, -rate_limit_, rate_limit_);
   tone_amp_ = std::max(2.0 * (std::abs(x1) + std::abs(x2)) / double(w), 1e-12);
   prev_y_ = 0;
   prev_dy_ = 0;
@@ -577,8 +580,7 @@ void TimingLoop::produce_one(BitSample& out) {
   // loop filter and NCO: step = spb (1 - integrator - K1 e)
   double step = spb * (1.0 - rate_int_);
   if (gains) {
-    const double rmax = 1.0 - 1.0 / (1.0 + cfg_.max_rate_offset);
-    rate_int_ = std::clamp(rate_int_ + gains->integral * e, -rmax, rmax);
+    rate_int_ = std::clamp(rate_int_ + gains->integral * e, -rate_limit_, rate_limit_);
     step = spb * (1.0 - rate_int_ - gains->proportional * e);
   }
   const double rate_offset = 1.0 / (1.0 - rate_int_) - 1.0;

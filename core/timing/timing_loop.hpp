@@ -212,6 +212,7 @@ class TimingLoop {
   double tone_amp_ = 1;              // P: tone amplitude from ZPS
   double data_gain_ = 1;             // G: EPR4 level of a single transition
   double inv_gain_ = 1, inv_error_scale_ = 1, inv_lock_average_ = 1, inv_spb_ = 1;  // set_track_scales()
+  double rate_limit_ = 0;            // |rate_int_| bound from max_rate_offset (set_track_scales())
   double sig_pow_ = 0, err_pow_ = 0; // lock detector averages
 
 
