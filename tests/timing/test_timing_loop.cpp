@@ -1,5 +1,7 @@
 #include <gtest/gtest.h>
 
+#include <limits>
+
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
@@ -313,14 +315,22 @@ TEST(TimingLoop, RejectsBadConfigurationAndInput) {
   c.pw50_bits = -1;
   EXPECT_THROW(TimingLoop{c}, salvor::Error);
   TimingLoop ok{TimingLoopConfig{}};
-  std::vector<float> bad = {0.1f, 0.2f, std::nanf(""), 0.3f};
-  std::vector<BitSample> out(8);
-  try {
-    ok.process(bad, out);
-    FAIL() << "NaN accepted";
-  } catch (const salvor::Error& e) {
-    EXPECT_EQ(e.kind(), salvor::ErrorKind::input);
-    EXPECT_NE(std::string(e.what()).find("non-finite sample at input index 2"), std::string::npos) << e.what();
+  const float inf = std::numeric_limits<float>::infinity();
+  for (const float v : {std::nanf(""), inf, -inf}) {
+    std::vector<float> bad = {0.1f, 0.2f, v, 0.3f};
+    std::vector<BitSample> out(8);
+    try {
+      ok.process(bad, out);
+      FAIL() << v << " accepted";
+    } catch (const salvor::Error& e) {
+      EXPECT_EQ(e.kind(), salvor::ErrorKind::input);
+      EXPECT_NE(std::string(e.what()).find("non-finite sample at input index 2"), std::string::npos) << e.what();
+    }
+    ok.reset();
   }
+  // The largest finite values are samples like any other.
+  std::vector<float> big = {std::numeric_limits<float>::max(), -std::numeric_limits<float>::max(), 0.0f};
+  std::vector<BitSample> out(8);
+  EXPECT_EQ(ok.process(big, out).consumed, big.size());
   EXPECT_FALSE(ok.describe().empty());
 }
