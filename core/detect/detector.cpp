@@ -1,5 +1,6 @@
 #include "detect/detector.hpp"
 
+#include <bit>
 #include <cerrno>
 #include <cfloat>
 #include <cmath>
@@ -171,11 +172,16 @@ void Detector::check_output(const char* call, size_t produced, size_t capacity, 
   }
   // A branch-free pass first (vectorised): is any bit above 1, any LLR not finite, or any
   // sign against its bit? Only then look for the first offender, to name it.
-  bool bad = false;
+  // On the float's bit patterns, in integers, so that it vectorises: exponent all ones is
+  // not finite; a set sign bit with a nonzero magnitude is < 0, a clear one is > 0.
+  uint32_t bad = 0;
   for (size_t i = 0; i < produced; ++i) {
-    const uint8_t b = bits[i];
-    const float l = llr[i];
-    bad |= (b > 1) | !(std::fabs(l) <= FLT_MAX) | ((b == 1) & (l < 0.0f)) | ((b == 0) & (l > 0.0f));
+    const uint32_t b = bits[i];
+    const uint32_t u = std::bit_cast<uint32_t>(llr[i]);
+    const uint32_t magnitude = u & 0x7fffffffu, negative = u >> 31;
+    const uint32_t nonzero = uint32_t(magnitude != 0);
+    bad |= uint32_t(b > 1) | uint32_t((u & 0x7f800000u) == 0x7f800000u) |
+           (uint32_t(b == 1) & negative & nonzero) | (uint32_t(b == 0) & (negative ^ 1u) & nonzero);
   }
   if (!bad) return;
   for (size_t i = 0; i < produced; ++i) {

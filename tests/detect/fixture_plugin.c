@@ -9,11 +9,12 @@
 #include "detect/salvor_detector.h"
 
 typedef struct {
-  int misbehave; /* 0 none, 1 bad bit value, 2 llr of the wrong sign, 3 fail with a message */
+  int misbehave; /* 0 none, 1 bad bit value, 2 llr of the wrong sign, 3 fail with a message,
+                    4 an infinite llr on the block's last bit */
 } fixture_state;
 
 static const salvor_param_desc fixture_params[] = {
-    {"misbehave", SALVOR_PARAM_CHOICE, 0, 0, 3, "none|bad_bit|bad_sign|fail", "", "how to break the contract"},
+    {"misbehave", SALVOR_PARAM_CHOICE, 0, 0, 4, "none|bad_bit|bad_sign|fail|non_finite", "", "how to break the contract"},
     {"count", SALVOR_PARAM_INT, 3, 1, 10, NULL, "bits", "an integer parameter"},
     {"gain", SALVOR_PARAM_REAL, 1.0, 0.5, 2.0, NULL, "", "a real parameter"},
     {"flag", SALVOR_PARAM_BOOL, 0, 0, 1, NULL, "", "a bool parameter"},
@@ -49,6 +50,7 @@ static int fx_process(void* handle, const salvor_detector_input* in, salvor_dete
   }
   if (in->count && s->misbehave == 1) out->bits[0] = 2;
   if (in->count && s->misbehave == 2) out->llr[0] = out->bits[0] ? -1.0f : 1.0f;
+  if (in->count && s->misbehave == 4) out->llr[in->count - 1] = out->bits[in->count - 1] ? INFINITY : -INFINITY;
   out->produced = in->count;
   return SALVOR_OK;
 }

@@ -190,7 +190,7 @@ TEST(Detector, ParameterValidationNamesDetectorAndKey) {
   refused({{"gain", "abc"}}, "'gain'");
   refused({{"gain", "0.1"}}, "outside");
   refused({{"flag", "maybe"}}, "'flag'");
-  refused({{"misbehave", "explode"}}, "none, bad_bit, bad_sign, fail");
+  refused({{"misbehave", "explode"}}, "none, bad_bit, bad_sign, fail, non_finite");
   refused({{"count", "2"}, {"count", "3"}}, "twice");
   Detector ok = host.create("testgood", DetectorSetup{{}, 0.0, {{"count", "10"}, {"flag", "yes"}, {"misbehave", "none"}}});
   EXPECT_EQ(ok.parameter_values()[1].second, 10.0);
@@ -213,7 +213,7 @@ TEST(Detector, PluginFailuresAndContractBreachesBecomeErrors) {
   std::vector<float> x{0.5f, -0.5f, 1.0f};
   std::vector<uint8_t> bits(8);
   std::vector<float> llr(8);
-  for (const char* how : {"bad_bit", "bad_sign", "fail"}) {
+  for (const char* how : {"bad_bit", "bad_sign", "fail", "non_finite"}) {
     Detector d = host.create("testgood", DetectorSetup{{}, 0.0, {{"misbehave", how}}});
     try {
       d.process(x, {}, bits, llr);
@@ -226,6 +226,10 @@ TEST(Detector, PluginFailuresAndContractBreachesBecomeErrors) {
       }
       if (std::string(how) == "bad_sign") {
         EXPECT_NE(msg.find("sign"), std::string::npos) << msg;
+      }
+      if (std::string(how) == "non_finite") {  // the offender is named, at its place
+        EXPECT_NE(msg.find("inf"), std::string::npos) << msg;
+        EXPECT_NE(msg.find("at 2"), std::string::npos) << msg;
       }
     }
   }
