@@ -82,8 +82,8 @@ SequenceDetector::SequenceDetector(std::span<const double> target,
     warm_delta_.assign(next_delta_.size(), 0);
   }
   decisions_.assign(fixed_ ? 0 : window_, 0);
-  // Segments: room after the ring for a copy of the look-ahead that wraps to its start, so
-  // that a segment's traceback reads one contiguous run.
+  // Segments: room after the ring for a copy of the look-ahead that wraps to its start (see
+  // trace_back).
   trace_dec_.assign(window_ + lookahead_, 0);
   delta_.assign(config_.reliability && !fixed_ ? window_ * S : 0, 0.0f);
   y_.assign(window_, 0.0f);
@@ -303,14 +303,14 @@ constexpr auto kSpreadBits = [] {
   return t;
 }();
 
-void SequenceDetector::trace_back(size_t n, size_t emit, size_t path_steps) {
+void SequenceDetector::trace_back(size_t n, size_t emit, size_t path_steps, size_t cut) {
   const int m = trellis_.memory();
-  if (segments_ && n == 2 * kSegmentHalf + lookahead_) {
-    // A segment: two chains, cut where the pass took its guess (see segment_pass).
+  if (cut > 0) {
+    // Two chains, cut where the pass took its guess (see segment_pass); the ring has room
+    // after its end for a copy of the steps that wrap, so that they are one contiguous run.
     if (head_ + n > window_)
       std::copy_n(trace_dec_.data(), head_ + n - window_, trace_dec_.data() + window_);
-    trace_levels_split(trace_dec_.data() + head_, n, m, best_state(), kSegmentHalf + lookahead_,
-                       mid_guess_, path_levels_.data());
+    trace_levels_split(trace_dec_.data() + head_, n, m, best_state(), cut, mid_guess_, path_levels_.data());
   } else {
     trace_levels_ring(trace_dec_.data(), window_, head_, n, m, best_state(), path_levels_.data());
   }
@@ -417,7 +417,7 @@ void SequenceDetector::sova(size_t n, size_t emit, double scale) {
   (config_.simd ? sova_simd : sova_scalar)(path, last, U, rel);
 }
 
-void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<float> llr) {
+void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<float> llr, size_t cut) {
   const size_t n = count_;
   // Survivor states and branches are needed by SOVA (up to the last merge it follows), by
   // the noise models and by the sigma estimate (the released steps); bits always.
@@ -425,7 +425,7 @@ void SequenceDetector::release(size_t emit, std::span<uint8_t> bits, std::span<f
   const size_t path_steps = config_.reliability ? sova_last
                             : (!euclidean_ || config_.noise_sigma <= 0.0) ? emit
                                                                            : 0;
-  trace_back(n, emit, path_steps);
+  trace_back(n, emit, path_steps, cut);
   // Estimates from the released part of the decided path.
   const bool adapting = config_.adapt && !trained_ && config_.kind != MetricKind::euclidean;
   // Local accumulators (same order of additions) keep the sums out of memory.
@@ -604,7 +604,7 @@ Progress SequenceDetector::process_segments(std::span<const float> samples,
     if (count_ == H && pending_ == 2 * H) {
       if (bits.size() - p.produced < 2 * H) break;  // no room for what the pass releases
       segment_pass();
-      release(2 * H, bits.subspan(p.produced, 2 * H), llr.subspan(p.produced, 2 * H));
+      release(2 * H, bits.subspan(p.produced, 2 * H), llr.subspan(p.produced, 2 * H), H + lookahead_);
       start_next_segment();
       p.produced += 2 * H;
       continue;

@@ -357,26 +357,36 @@ void trace_range(const uint64_t* dec, size_t begin, size_t count, uint64_t& r,
   }
 }
 
-}  // namespace
-
-void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size_t n,
-                       int memory, int state, uint64_t* levels) {
+// Zeroes the words of `levels` past those a trace of n steps writes (word t / 64 for
+// every step t that is a multiple of 64), which hold only the final state's levels.
+void clear_untraced_words(size_t n, int memory, uint64_t* levels) {
   const size_t words = (n + static_cast<size_t>(memory) + 63) / 64;
-  const size_t stored = n ? (n - 1) / 64 + 1 : 0;  // words the loop writes
+  const size_t stored = n ? (n - 1) / 64 + 1 : 0;
   for (size_t w = stored; w < words; ++w) levels[w] = 0;
-  uint64_t r = static_cast<uint64_t>(reverse_bits(state, memory));
-  // Steps [0, first) sit at ring[head ..], the rest at ring[0 ..].
-  const size_t first = std::min(n, ring_size - head);
-  if (n > first) trace_range(ring, first, n - first, r, levels);
-  trace_range(ring + head, 0, first, r, levels);
-  // The final state's levels, bits n .. n + memory - 1 (already there unless they spill
-  // into a word the loop did not write).
+}
+
+// The final state's levels, bits n .. n + memory - 1 (already there unless they spill into
+// a word the trace did not write).
+void set_final_levels(size_t n, int memory, int state, uint64_t* levels) {
   const int fin = reverse_bits(state, memory);
   for (int b = 0; b < memory; ++b) {
     const size_t i = n + static_cast<size_t>(b);
     const uint64_t bit = uint64_t{1} << (i % 64);
     levels[i / 64] = ((fin >> b) & 1) ? (levels[i / 64] | bit) : (levels[i / 64] & ~bit);
   }
+}
+
+}  // namespace
+
+void trace_levels_ring(const uint64_t* ring, size_t ring_size, size_t head, size_t n,
+                       int memory, int state, uint64_t* levels) {
+  clear_untraced_words(n, memory, levels);
+  uint64_t r = static_cast<uint64_t>(reverse_bits(state, memory));
+  // Steps [0, first) sit at ring[head ..], the rest at ring[0 ..].
+  const size_t first = std::min(n, ring_size - head);
+  if (n > first) trace_range(ring, first, n - first, r, levels);
+  trace_range(ring + head, 0, first, r, levels);
+  set_final_levels(n, memory, state, levels);
 }
 
 void trace_levels(const uint64_t* decisions, size_t n, int memory, int state, uint64_t* levels) {
@@ -389,12 +399,11 @@ bool trace_levels_split(const uint64_t* decisions, size_t n, int memory, int sta
     trace_levels(decisions, n, memory, state, levels);
     return true;
   }
-  const size_t words = (n + static_cast<size_t>(memory) + 63) / 64;
-  const size_t stored = (n - 1) / 64 + 1;
-  for (size_t w = stored; w < words; ++w) levels[w] = 0;
+  clear_untraced_words(n, memory, levels);
   const uint64_t low = (uint64_t{1} << memory) - 1;
+  const uint64_t guess = static_cast<uint64_t>(reverse_bits(mid_guess, memory));
   uint64_t r1 = static_cast<uint64_t>(reverse_bits(state, memory));
-  uint64_t r2 = static_cast<uint64_t>(reverse_bits(mid_guess, memory));
+  uint64_t r2 = guess;
   // The two chains in one loop: each waits on its own bit test and add, so together they
   // take the time of the longer one.
   size_t t1 = n, t2 = mid;
@@ -408,7 +417,7 @@ bool trace_levels_split(const uint64_t* decisions, size_t n, int memory, int sta
     r1 = trace_step(r1, decisions[--t1]);
     if (t1 % 64 == 0) levels[t1 / 64] = r1;
   }
-  const bool guessed = (r1 & low) == static_cast<uint64_t>(reverse_bits(mid_guess, memory));
+  const bool guessed = (r1 & low) == guess;
   if (!guessed) {
     // The guess was off the survivor: the first part again from the true state.
     uint64_t r = r1;
@@ -425,12 +434,7 @@ bool trace_levels_split(const uint64_t* decisions, size_t n, int memory, int sta
       w = (w & ((uint64_t{1} << b) - 1)) | (r1 << b);
     }
   }
-  const int fin = reverse_bits(state, memory);
-  for (int b = 0; b < memory; ++b) {
-    const size_t i = n + static_cast<size_t>(b);
-    const uint64_t bit = uint64_t{1} << (i % 64);
-    levels[i / 64] = ((fin >> b) & 1) ? (levels[i / 64] | bit) : (levels[i / 64] & ~bit);
-  }
+  set_final_levels(n, memory, state, levels);
   return guessed;
 }
 

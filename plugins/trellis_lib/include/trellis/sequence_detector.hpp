@@ -142,9 +142,11 @@ class SequenceDetector {
   void install_tables();
   // Traces the survivor through the `n` steps of the window: the NRZI bits of the first
   // `emit` steps, and the states, branches and bits of the first `path_steps`.
-  void trace_back(size_t n, size_t emit, size_t path_steps);
+  // cut > 0: a segment pass's release, traced as two chains cut at that step from the
+  // pass's guess of the survivor there (exact either way).
+  void trace_back(size_t n, size_t emit, size_t path_steps, size_t cut);
   void sova(size_t n, size_t emit, double scale);
-  void release(size_t emit, std::span<uint8_t> bits, std::span<float> llr);
+  void release(size_t emit, std::span<uint8_t> bits, std::span<float> llr, size_t cut = 0);
   void clear_span();
   bool has_noise_model() const { return model_ready_; }
   double llr_scale() const;
