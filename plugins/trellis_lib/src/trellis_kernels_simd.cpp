@@ -163,6 +163,46 @@ HWY_INLINE V butterfly_partner(D d, const V* pm, size_t c) {
   }
 }
 
+// The step loop both fixed-point kernels share: `n` steps from span step step0 through
+// `s.template at<P>(k, renorm)` (P: layout phase, at compile time). Single steps up to a
+// multiple of the period L, where layout (every M steps) and renormalisation (every
+// kRenormInterval) repeat; whole periods unrolled, both known at compile time; single steps
+// at the end.
+template <int M, class StepAt, int... P>
+HWY_INLINE void fixed_single_step(const StepAt& s, size_t k, size_t step_index,
+                                  std::integer_sequence<int, P...>) {
+  const int phase = static_cast<int>(step_index % M);
+  const bool renorm = (step_index + 1) % kRenormInterval == 0;
+  ((phase == P ? s.template at<P>(k, renorm) : void()), ...);
+}
+
+template <int M, class StepAt, size_t... Q>
+HWY_INLINE void fixed_period(const StepAt& s, size_t k, std::index_sequence<Q...>) {
+  (s.template at<static_cast<int>(Q % M)>(k + Q, (Q + 1) % kRenormInterval == 0), ...);
+}
+
+template <int M, size_t L, class StepAt>
+HWY_INLINE void drive_fixed_steps(const StepAt& s, size_t step0, size_t n) {
+  constexpr auto phases = std::make_integer_sequence<int, M>();
+  size_t k = 0;
+  for (; k < n && (step0 + k) % L != 0; ++k) fixed_single_step<M>(s, k, step0 + k, phases);
+  for (; k + L <= n; k += L) fixed_period<M>(s, k, std::make_index_sequence<L>());
+  for (; k < n; ++k) fixed_single_step<M>(s, k, step0 + k, phases);
+}
+
+// State-ordered metrics into lane order before a step of span step `step` (the layout is
+// the one after the phase before it), and lane order back into state order after step - 1.
+HWY_INLINE void to_lane_order(const FixedAcsTables& t, int memory, size_t step, const uint16_t* pm,
+                              uint16_t* lanes) {
+  const uint8_t* layout = t.lane_state.data() + ((step + memory - 1) % memory) * t.states;
+  for (int l = 0; l < t.states; ++l) lanes[l] = pm[layout[l]];
+}
+HWY_INLINE void to_state_order(const FixedAcsTables& t, int memory, size_t step, const uint16_t* lanes,
+                               uint16_t* pm) {
+  const uint8_t* layout = t.lane_state.data() + ((step + memory - 1) % memory) * t.states;
+  for (int l = 0; l < t.states; ++l) pm[layout[l]] = lanes[l];
+}
+
 template <int S>
 struct FixedKernel {
   static constexpr int M = S == 2 ? 1 : S == 4 ? 2 : S == 8 ? 3 : S == 16 ? 4 : 5;
@@ -233,28 +273,21 @@ struct FixedKernel {
     return w;
   }
 
-  // L steps starting at a span step that is a multiple of L.
-  template <bool kDelta, bool kErased, size_t... Q>
-  static HWY_INLINE void period(const Tables& t, Metrics& pm, const int16_t* yq,
-                                const uint8_t* erased, uint64_t* decisions, uint16_t* delta,
-                                std::index_sequence<Q...>) {
-    ((decisions[Q] = step<static_cast<int>(Q % M), kDelta>(
-          t, pm, yq[Q], kErased && erased[Q] != 0, (Q + 1) % kRenormInterval == 0,
-          kDelta ? delta + Q * S : nullptr)),
-     ...);
-  }
-
-  template <bool kDelta, bool kErased, size_t... P>
-  static HWY_INLINE void single(const Tables& t, Metrics& pm, int phase, size_t step_index,
-                                const int16_t* yq, const uint8_t* erased, uint64_t* decisions,
-                                uint16_t* delta, std::index_sequence<P...>) {
-    ((phase == static_cast<int>(P)
-          ? void(*decisions = step<static_cast<int>(P), kDelta>(
-                t, pm, *yq, kErased && *erased != 0, (step_index + 1) % kRenormInterval == 0,
-                delta))
-          : void()),
-     ...);
-  }
+  // One step at index k of the run, for drive_fixed_steps.
+  template <bool kDelta, bool kErased>
+  struct StepAt {
+    const Tables& t;
+    Metrics& pm;
+    const int16_t* yq;
+    const uint8_t* erased;
+    uint64_t* decisions;
+    uint16_t* delta;
+    template <int P>
+    HWY_INLINE void at(size_t k, bool renorm) const {
+      decisions[k] = step<P, kDelta>(t, pm, yq[k], kErased && erased[k] != 0, renorm,
+                                     kDelta ? delta + k * S : nullptr);
+    }
+  };
 
   template <bool kDelta, bool kErased>
   static void steps(const Tables& tables, Metrics& metrics, size_t step0, const int16_t* yq,
@@ -262,19 +295,7 @@ struct FixedKernel {
     // Local copies whose address never escapes stay in registers across the stores.
     const Tables t = tables;
     Metrics pm = metrics;
-    constexpr auto phases = std::make_index_sequence<M>();
-    auto at = [&](size_t k) { return kErased ? erased + k : nullptr; };
-    auto delta_at = [&](size_t k) { return kDelta ? delta + k * S : nullptr; };
-    size_t k = 0;
-    for (; k < n && (step0 + k) % L != 0; ++k)
-      single<kDelta, kErased>(t, pm, static_cast<int>((step0 + k) % M), step0 + k, yq + k, at(k),
-                              decisions + k, delta_at(k), phases);
-    for (; k + L <= n; k += L)
-      period<kDelta, kErased>(t, pm, yq + k, at(k), decisions + k, delta_at(k),
-                              std::make_index_sequence<L>());
-    for (; k < n; ++k)
-      single<kDelta, kErased>(t, pm, static_cast<int>((step0 + k) % M), step0 + k, yq + k, at(k),
-                              decisions + k, delta_at(k), phases);
+    drive_fixed_steps<M, L>(StepAt<kDelta, kErased>{t, pm, yq, erased, decisions, delta}, step0, n);
     metrics = pm;
   }
 
@@ -282,11 +303,8 @@ struct FixedKernel {
                   const uint8_t* erased, size_t n, uint64_t* decisions, uint16_t* delta) {
     const D d;
     const Tables t{tables.own_out.data(), tables.partner_out.data(), tables.trace_word.data()};
-    const int p0 = static_cast<int>(step0 % M);
-    // Into lane order: before a step of phase p0 the layout is the one after phase p0 - 1.
     alignas(64) uint16_t lanes[S];
-    const uint8_t* before = tables.lane_state.data() + ((p0 + M - 1) % M) * S;
-    for (int l = 0; l < S; ++l) lanes[l] = pm_io[before[l]];
+    to_lane_order(tables, M, step0, pm_io, lanes);
     Metrics pm;
     for (size_t c = 0; c < C; ++c) pm.v[c] = hn::Load(d, lanes + c * N);
     if (delta)
@@ -296,8 +314,7 @@ struct FixedKernel {
       erased ? steps<false, true>(t, pm, step0, yq, erased, n, decisions, delta)
              : steps<false, false>(t, pm, step0, yq, erased, n, decisions, delta);
     for (size_t c = 0; c < C; ++c) hn::Store(pm.v[c], d, lanes + c * N);
-    const uint8_t* after = tables.lane_state.data() + ((step0 + n + M - 1) % M) * S;
-    for (int l = 0; l < S; ++l) pm_io[after[l]] = lanes[l];
+    to_state_order(tables, M, step0 + n, lanes, pm_io);
   }
 };
 
@@ -409,33 +426,23 @@ struct DualFixedKernel {
     }
   }
 
-  template <bool kDelta, bool kErased, size_t... Q>
-  static HWY_INLINE void period(const Tables& t, Metrics& pm, const Lanes& l, size_t k,
-                                std::index_sequence<Q...>) {
-    (step<static_cast<int>(Q % M), kDelta, kErased>(t, pm, l, k + Q, (Q + 1) % kRenormInterval == 0),
-     ...);
-  }
-
-  template <bool kDelta, bool kErased, size_t... P>
-  static HWY_INLINE void single(const Tables& t, Metrics& pm, const Lanes& l, size_t k, size_t step_index,
-                                std::index_sequence<P...>) {
-    const int phase = static_cast<int>(step_index % M);
-    ((phase == static_cast<int>(P)
-          ? step<static_cast<int>(P), kDelta, kErased>(t, pm, l, k, (step_index + 1) % kRenormInterval == 0)
-          : void()),
-     ...);
-  }
+  template <bool kDelta, bool kErased>
+  struct StepAt {
+    const Tables& t;
+    Metrics& pm;
+    const Lanes& l;
+    template <int P>
+    HWY_INLINE void at(size_t k, bool renorm) const {
+      step<P, kDelta, kErased>(t, pm, l, k, renorm);
+    }
+  };
 
   template <bool kDelta, bool kErased>
   static void steps(const Tables& tables, Metrics& metrics, const Lanes& lanes, size_t step0, size_t n) {
     const Tables t = tables;
     const Lanes l = lanes;
     Metrics pm = metrics;
-    constexpr auto phases = std::make_index_sequence<M>();
-    size_t k = 0;
-    for (; k < n && (step0 + k) % L != 0; ++k) single<kDelta, kErased>(t, pm, l, k, step0 + k, phases);
-    for (; k + L <= n; k += L) period<kDelta, kErased>(t, pm, l, k, std::make_index_sequence<L>());
-    for (; k < n; ++k) single<kDelta, kErased>(t, pm, l, k, step0 + k, phases);
+    drive_fixed_steps<M, L>(StepAt<kDelta, kErased>{t, pm, l}, step0, n);
     metrics = pm;
   }
 
@@ -444,13 +451,9 @@ struct DualFixedKernel {
     const D d;
     const Tables t{tables.own_out2.data(), tables.partner_out2.data(), tables.trace_word.data()};
     const Lanes l{{a.yq, b.yq}, {a.erased, b.erased}, {a.decisions, b.decisions}, {a.delta, b.delta}};
-    const int p0 = static_cast<int>(step0 % M);
     alignas(64) uint16_t lanes[2 * S];
-    const uint8_t* before = tables.lane_state.data() + ((p0 + M - 1) % M) * S;
-    for (int i = 0; i < S; ++i) {
-      lanes[i] = a.pm[before[i]];
-      lanes[S + i] = b.pm[before[i]];
-    }
+    to_lane_order(tables, M, step0, a.pm, lanes);
+    to_lane_order(tables, M, step0, b.pm, lanes + S);
     Metrics pm;
     for (size_t c = 0; c < C; ++c) pm.v[c] = hn::Load(d, lanes + c * N);
     const bool delta = a.delta != nullptr, erased = a.erased != nullptr || b.erased != nullptr;
@@ -459,11 +462,8 @@ struct DualFixedKernel {
     else
       erased ? steps<false, true>(t, pm, l, step0, n) : steps<false, false>(t, pm, l, step0, n);
     for (size_t c = 0; c < C; ++c) hn::Store(pm.v[c], d, lanes + c * N);
-    const uint8_t* after = tables.lane_state.data() + ((step0 + n + M - 1) % M) * S;
-    for (int i = 0; i < S; ++i) {
-      a.pm[after[i]] = lanes[i];
-      b.pm[after[i]] = lanes[S + i];
-    }
+    to_state_order(tables, M, step0 + n, lanes, a.pm);
+    to_state_order(tables, M, step0 + n, lanes + S, b.pm);
   }
 };
 
